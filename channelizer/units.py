@@ -1,0 +1,63 @@
+"""Parsing and formatting of rates and frequencies with SI suffixes."""
+
+import math
+import re
+
+from .errors import ChannelizerError
+
+__all__ = ["parse_frequency", "format_hz"]
+
+_SUFFIX = {"": 1.0, "k": 1e3, "K": 1e3, "M": 1e6, "G": 1e9}
+_NUMBER = re.compile(
+    r"^\s*(?P<num>[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(?P<suf>[kKMG]?)\s*(?:Hz|hz|sps|SPS)?\s*$"
+)
+
+
+def parse_frequency(text, *, name="frequency", allow_negative=True):
+    """Read a rate or frequency in Hz: ``61.44M``, ``200k``, ``1.5e6``, ``-25k``.
+
+    Parameters
+    ----------
+    text : str or float
+        The value; a suffix k, M or G multiplies by 1e3, 1e6 or 1e9.
+    name : str
+        What the value is, for the error message.
+    allow_negative : bool
+        Whether a value below zero is accepted.
+
+    Returns
+    -------
+    float
+        The value in Hz.
+
+    Raises
+    ------
+    ChannelizerError
+        When the text is not a finite number with an optional suffix.
+    """
+    if isinstance(text, bool):
+        raise ChannelizerError(f"{name}: expected a number, got {text!r}")
+    if isinstance(text, (int, float)):
+        value = float(text)
+    else:
+        m = _NUMBER.match(str(text))
+        if not m:
+            raise ChannelizerError(
+                f"{name}: {text!r} is not a number (examples: 61.44M, 200k, 1.5e6)"
+            )
+        value = float(m.group("num")) * _SUFFIX[m.group("suf")]
+    if not math.isfinite(value):
+        raise ChannelizerError(f"{name}: {text!r} is not finite")
+    if not allow_negative and value < 0:
+        raise ChannelizerError(f"{name}: {text!r} must not be negative")
+    return value
+
+
+def format_hz(value, unit="Hz", digits=6):
+    """Format a value in Hz with an SI prefix: ``format_hz(61.44e6) == '61.44 MHz'``."""
+    value = float(value)
+    mag = abs(value)
+    for scale, prefix in ((1e9, "G"), (1e6, "M"), (1e3, "k")):
+        if mag >= scale:
+            return f"{value / scale:.{digits}g} {prefix}{unit}"
+    return f"{value:.{digits}g} {unit}"
