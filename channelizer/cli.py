@@ -1,0 +1,178 @@
+"""Command line: a thin shell over the library.
+
+Every command turns :class:`~channelizer.errors.ChannelizerError` (bad input) into
+one ``error:`` line on stderr and exit status 2.
+"""
+
+import argparse
+import contextlib
+import os
+import sys
+
+from .errors import ChannelizerError
+from .units import parse_frequency
+
+__all__ = ["main", "build_parser"]
+
+
+def _rate(name):
+    def parse(text):
+        try:
+            return parse_frequency(text, name=name, allow_negative=False)
+        except ChannelizerError as exc:
+            raise argparse.ArgumentTypeError(str(exc)) from None
+
+    parse.__name__ = name
+    return parse
+
+
+def _positive_float(text):
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not v > 0 or v != v or v == float("inf"):
+        raise argparse.ArgumentTypeError(f"{text!r} must be a positive finite number")
+    return v
+
+
+def _bits(text):
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number of bits") from None
+    if not 2 <= v <= 32:
+        raise argparse.ArgumentTypeError(f"{v} bits is outside 2..32")
+    return v
+
+
+def read_plan(path):
+    """Load a plan file, naming it in any error."""
+    from .plan import MAX_PLAN_BYTES, Plan
+
+    try:
+        size = os.path.getsize(path)
+        if size > MAX_PLAN_BYTES:
+            raise ChannelizerError(f"{path}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
+        with open(path, "rb") as fh:
+            data = fh.read()
+    except OSError as exc:
+        raise ChannelizerError(f"{path}: cannot read plan ({exc.strerror})") from None
+    return Plan.from_yaml(data, source=path)
+
+
+def _cmd_plan(args):
+    from .atomic import write_text_atomic
+    from .planner import plan_chain
+    from .spec import ChainSpec
+    from .table import format_alternatives, format_plan
+
+    spec = ChainSpec(
+        input_rate=args.rate,
+        bandwidth=args.bandwidth,
+        output_rate=args.output_rate,
+        ripple_db=args.ripple_db,
+        rejection_db=args.rejection_db,
+        input_bits=args.input_bits,
+        output_bits=args.output_bits,
+        coefficient_bits=args.coefficient_bits,
+        objective=args.objective,
+        clock=args.clock,
+    )
+    result = plan_chain(spec)
+    print(format_plan(result.plan))
+    alt = format_alternatives(result.alternatives)
+    if alt:
+        print(alt)
+    if args.out:
+        _check_output_path(args.out)
+        write_text_atomic(args.out, result.plan.to_yaml())
+        print(f"\nplan written to {args.out}")
+    if args.plot:
+        from .plots import plot_plan
+
+        _check_output_path(args.plot)
+        plot_plan(result.plan, args.plot)
+        print(f"response plot written to {args.plot}")
+    return 0
+
+
+def _cmd_show(args):
+    from .table import format_plan
+
+    plan = read_plan(args.plan)
+    print(format_plan(plan))
+    if args.plot:
+        from .plots import plot_plan
+
+        _check_output_path(args.plot)
+        plot_plan(plan, args.plot)
+        print(f"response plot written to {args.plot}")
+    return 0
+
+
+def _check_output_path(path):
+    folder = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(folder):
+        raise ChannelizerError(f"{path}: folder {folder} does not exist")
+    if os.path.isdir(path):
+        raise ChannelizerError(f"{path}: is a folder, expected a file name")
+
+
+def build_parser():
+    p = argparse.ArgumentParser(
+        prog="channelizer",
+        description="Plan, apply, check and hand off multistage decimation chains for IQ captures.",
+    )
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    q = sub.add_parser("plan", help="design the cheapest chain for a channel", description="Design the cheapest decimation chain that meets a ripple and alias-rejection target.")
+    q.add_argument("--rate", type=_rate("rate"), required=True, help="input complex sample rate (e.g. 61.44M)")
+    q.add_argument("--bandwidth", type=_rate("bandwidth"), required=True, help="channel's occupied two-sided bandwidth")
+    q.add_argument("--output-rate", type=_rate("output rate"), default=None, help="required output rate (default: lowest integer-decimation rate >= 1.25 x bandwidth)")
+    q.add_argument("--ripple-db", type=_positive_float, default=0.1, help="largest peak-to-peak passband ripple (default 0.1)")
+    q.add_argument("--rejection-db", type=_positive_float, default=80.0, help="smallest alias rejection (default 80)")
+    q.add_argument("--input-bits", type=_bits, default=16)
+    q.add_argument("--output-bits", type=_bits, default=16)
+    q.add_argument("--coefficient-bits", type=_bits, default=18, help="FIR coefficient width for --objective hardware (default 18)")
+    q.add_argument("--objective", choices=["cpu", "hardware"], default="cpu", help="what to minimise (default cpu)")
+    q.add_argument("--clock", type=_rate("clock"), default=None, help="hardware clock (default: the input rate)")
+    q.add_argument("--out", metavar="FILE.yaml", help="write the plan file")
+    q.add_argument("--plot", metavar="FILE.png", help="write the response figure")
+    q.set_defaults(func=_cmd_plan)
+
+    s = sub.add_parser("show", help="print and plot an existing plan", description="Print the stage table of a plan file and plot its response.")
+    s.add_argument("plan", metavar="PLAN.yaml")
+    s.add_argument("--plot", metavar="FILE.png", help="write the response figure")
+    s.set_defaults(func=_cmd_show)
+
+    for register in _EXTRA_COMMANDS:
+        register(sub)
+    return p
+
+
+#: Registration functions of further commands, each adding one subparser.
+_EXTRA_COMMANDS = []
+
+
+def main(argv=None):
+    """Run the command line; returns the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args) or 0
+    except ChannelizerError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("error: interrupted; no output was completed", file=sys.stderr)
+        return 130
+    except OSError as exc:
+        name = f"{exc.filename}: " if exc.filename else ""
+        print(f"error: {name}{exc.strerror or exc}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

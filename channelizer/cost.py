@@ -1,0 +1,116 @@
+"""What a chain costs to run, stage by stage.
+
+Counts are per complex sample: one "multiply" is a coefficient times a complex
+sample (two real multiplies, on I and Q).  The ``cpu`` objective counts what a
+vectorised polyphase implementation does: every non-zero tap is multiplied
+(zero taps of half-bands are skipped, symmetry is not exploited).  The
+``hardware`` objective folds symmetric taps (one multiplier per coefficient
+pair, pre-adding the two samples), treats the half-band centre tap 0.5 as a
+shift, and counts the multipliers needed at the stated clock for both rails.
+A CIC needs no multiplier: N additions at its input rate and N at its output
+rate (Hogenauer 1981).
+"""
+
+from dataclasses import dataclass
+import math
+
+import numpy as np
+
+from .stages import CicStage, ResamplerStage, chain_rates
+
+__all__ = ["StageCost", "ChainCost", "chain_cost"]
+
+
+@dataclass(frozen=True)
+class StageCost:
+    multiplies_per_input_sample: float  # per sample at the chain's input
+    multiplies_per_second: float
+    additions_per_second: float
+    coefficients: int
+    register_bits: int
+    multipliers: int  # hardware multipliers at the clock, I and Q together
+
+
+@dataclass(frozen=True)
+class ChainCost:
+    stages: tuple
+    objective: str
+
+    @property
+    def total(self):
+        fields = StageCost.__dataclass_fields__
+        return StageCost(**{k: sum(getattr(s, k) for s in self.stages) for k in fields})
+
+    def key(self):
+        """Ranking key: smaller is cheaper."""
+        t = self.total
+        if self.objective == "hardware":
+            return (t.multipliers, t.register_bits, t.multiplies_per_second)
+        return (t.multiplies_per_input_sample, t.additions_per_second)
+
+
+def _nonzero(taps):
+    return int(np.count_nonzero(np.asarray(taps, dtype=float)))
+
+
+def _fir_multiplies_per_output(stage, objective):
+    nz = _nonzero(stage.taps)
+    if objective == "hardware":
+        if stage.kind == "halfband":
+            return (nz - 1 + 1) // 2  # centre tap 0.5 is a shift
+        return (nz + 1) // 2
+    return nz
+
+
+def chain_cost(stages, *, fs, objective="cpu", clock=None, input_bits=16, coefficient_bits=18):
+    """Per-stage and total cost of a chain.
+
+    Parameters
+    ----------
+    stages : sequence of stages
+    fs : float
+        Chain input rate, Hz.
+    objective : {'cpu', 'hardware'}
+    clock : float, optional
+        Hardware clock in Hz; defaults to ``fs``.
+    input_bits : int
+        Sample width at the chain's input (for register counts).
+    coefficient_bits : int
+        Coefficient width (for register counts).
+
+    References
+    ----------
+    R. E. Crochiere and L. R. Rabiner, "Interpolation and decimation of digital
+    signals -- a tutorial review", Proc. IEEE 69(3):300-331, 1981: cost
+    ``sum_i N_i F_i``.
+    """
+    clock = fs if clock is None else clock
+    rates = chain_rates(stages, fs=fs)
+    out = []
+    width = input_bits
+    for st, rate in zip(stages, rates):
+        if isinstance(st, CicStage):
+            out_rate = rate / st.decimation
+            adds = 2 * (st.order * rate + st.order * out_rate)
+            regs = st.register_bits or (input_bits + math.ceil(st.order * math.log2(st.decimation * st.differential_delay)))
+            pruned = st.pruned_bits[: 2 * st.order] if st.pruned_bits else (0,) * (2 * st.order)
+            reg_bits = 2 * sum(regs - p for p in pruned)
+            out.append(StageCost(0.0, 0.0, adds, 0, reg_bits, 0))
+            width = regs - (st.pruned_bits[-1] if st.pruned_bits else 0)
+            continue
+        if isinstance(st, ResamplerStage):
+            out_rate = rate * st.interpolation / st.decimation
+            nz = _nonzero(st.taps)
+            per_out = nz / st.interpolation
+            if objective == "hardware":
+                per_out = math.ceil(per_out / 2)
+        else:
+            out_rate = rate / st.decimation
+            per_out = _fir_multiplies_per_output(st, objective)
+            nz = _nonzero(st.taps)
+        mps = per_out * out_rate
+        adds = 2 * max(nz - 1, 0) * out_rate / (st.interpolation if isinstance(st, ResamplerStage) else 1)
+        reg_bits = 2 * len(st.taps) * width + nz * coefficient_bits
+        mult = math.ceil(2 * mps / clock) if mps else 0
+        out.append(StageCost(mps / fs, mps, adds, len(st.taps), reg_bits, mult))
+    return ChainCost(tuple(out), objective)

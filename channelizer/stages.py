@@ -1,0 +1,201 @@
+"""The stages a decimation chain is made of, and their frequency responses.
+
+Each stage knows its own decimation, its impulse response at its own input rate
+and its complex frequency response at any frequency in Hz.  Stages hold no
+streaming state; the processor builds its own runners from them.
+"""
+
+from dataclasses import dataclass, field
+from fractions import Fraction
+import math
+import typing
+
+import numpy as np
+import scipy.signal
+
+__all__ = [
+    "CicStage",
+    "FirStage",
+    "ResamplerStage",
+    "Stage",
+    "cic_taps",
+    "fir_response",
+    "is_halfband",
+    "chain_rates",
+]
+
+
+def cic_taps(order, decimation, differential_delay=1):
+    """Impulse response of a CIC decimator with unit DC gain.
+
+    ``H(z) = [(1 - z^{-RM}) / (1 - z^{-1})]^N / (RM)^N`` (Hogenauer 1981): the N-fold
+    convolution of a boxcar of length ``R M``, length ``N (R M - 1) + 1``.
+    """
+    box = np.ones(decimation * differential_delay)
+    h = np.ones(1)
+    for _ in range(order):
+        h = np.convolve(h, box)
+    return h / float(decimation * differential_delay) ** order
+
+
+def fir_response(taps, f, *, fs):
+    """Complex response ``sum_k h[k] exp(-2j pi f k / fs)`` at frequencies ``f`` (Hz)."""
+    f = np.asarray(f, dtype=float)
+    _, h = scipy.signal.freqz(np.asarray(taps, dtype=float), worN=f.ravel(), fs=fs)
+    return h.reshape(f.shape)
+
+
+def is_halfband(taps, *, atol=1e-12):
+    """True when ``taps`` is a half-band impulse response.
+
+    Half-band properties (Vaidyanathan & Nguyen 1987, from memory): odd length
+    ``4K - 1``, centre tap 0.5, every other tap zero away from the centre, symmetric.
+    """
+    h = np.asarray(taps, dtype=float)
+    n = h.size
+    if n < 3 or n % 4 != 3:
+        return False
+    c = (n - 1) // 2
+    even_offsets = np.abs(np.arange(n) - c) % 2 == 0
+    even_offsets[c] = False
+    return (
+        abs(h[c] - 0.5) <= atol
+        and np.all(np.abs(h[even_offsets]) <= atol)
+        and np.allclose(h, h[::-1], rtol=0, atol=atol)
+    )
+
+
+@dataclass(frozen=True)
+class CicStage:
+    """Cascaded integrator-comb decimator (Hogenauer 1981).
+
+    Attributes
+    ----------
+    decimation : int
+        R.
+    order : int
+        N, the number of integrator and comb sections.
+    differential_delay : int
+        M, the comb delay in output samples.
+    register_bits : int
+        Full-precision register width ``B_in + ceil(N log2(R M))``.
+    pruned_bits : tuple of int
+        LSBs discarded at integrators 1..N, combs N+1..2N and the output
+        (Hogenauer's pruning; ``2N + 1`` entries, empty when not computed).
+    """
+
+    decimation: int
+    order: int
+    differential_delay: int = 1
+    register_bits: int = 0
+    pruned_bits: tuple = ()
+    kind: typing.ClassVar[str] = "cic"
+
+    @property
+    def interpolation(self):
+        return 1
+
+    def taps(self):
+        """Unit-DC-gain boxcar-power impulse response."""
+        return cic_taps(self.order, self.decimation, self.differential_delay)
+
+    @property
+    def num_taps(self):
+        return self.order * (self.decimation * self.differential_delay - 1) + 1
+
+    def response(self, f, *, fs):
+        """Closed-form response ``[sin(pi f R M / fs) / (R M sin(pi f / fs))]^N`` with its phase."""
+        f = np.asarray(f, dtype=float)
+        rm = self.decimation * self.differential_delay
+        x = f / fs
+        s = np.sin(np.pi * x)
+        small = np.abs(s) < 1e-12
+        m = np.round(x)
+        ratio = np.where(
+            small,
+            np.where((m * (rm - 1)) % 2 == 0, 1.0, -1.0),
+            np.sin(np.pi * x * rm) / np.where(small, 1.0, rm * s),
+        )
+        phase = np.exp(-1j * np.pi * x * (rm - 1) * self.order)
+        return ratio**self.order * phase
+
+    @property
+    def delay(self):
+        """Group delay in input samples: ``N (R M - 1) / 2``."""
+        return self.order * (self.decimation * self.differential_delay - 1) / 2.0
+
+
+@dataclass(frozen=True)
+class FirStage:
+    """A linear-phase FIR that may decimate.
+
+    ``kind`` is ``'halfband'`` for a half-band decimator by 2, else ``'fir'``;
+    ``role`` says why the stage is there (``'compensator'``, ``'channel'``,
+    ``'halfband'``).  ``coefficient_bits`` is set when ``taps`` are quantised
+    values (integers divided by ``2**coefficient_frac_bits``).
+    """
+
+    decimation: int
+    taps: tuple
+    kind: str = "fir"
+    role: str = "channel"
+    coefficient_bits: int | None = None
+    coefficient_frac_bits: int | None = None
+
+    @property
+    def interpolation(self):
+        return 1
+
+    @property
+    def num_taps(self):
+        return len(self.taps)
+
+    def response(self, f, *, fs):
+        return fir_response(self.taps, f, fs=fs)
+
+    @property
+    def delay(self):
+        return (len(self.taps) - 1) / 2.0
+
+
+@dataclass(frozen=True)
+class ResamplerStage:
+    """Rational resampler: up by L (zeros), low-pass with gain L, down by M.
+
+    ``taps`` run at L times the stage's input rate.
+    """
+
+    interpolation: int
+    decimation: int
+    taps: tuple
+    coefficient_bits: int | None = None
+    coefficient_frac_bits: int | None = None
+    kind: typing.ClassVar[str] = "resampler"
+    role: typing.ClassVar[str] = "resampler"
+
+    @property
+    def num_taps(self):
+        return len(self.taps)
+
+    def response(self, f, *, fs):
+        """Response of the interpolation filter at ``f``, ``fs`` being the stage's input rate."""
+        return fir_response(self.taps, f, fs=fs * self.interpolation)
+
+    @property
+    def delay(self):
+        """Group delay in input samples of the stage."""
+        return (len(self.taps) - 1) / 2.0 / self.interpolation
+
+
+Stage = CicStage | FirStage | ResamplerStage
+
+
+def chain_rates(stages, *, fs):
+    """Input rate of every stage and the final output rate, as Fractions of ``fs``.
+
+    Returns a list of ``len(stages) + 1`` rates in Hz (floats).
+    """
+    rates = [Fraction(fs).limit_denominator(10**9) if not float(fs).is_integer() else Fraction(int(fs))]
+    for st in stages:
+        rates.append(rates[-1] * st.interpolation / st.decimation)
+    return [float(r) for r in rates]
