@@ -342,8 +342,9 @@ def make_scenario(*, fs=2.4e6, duration=4.0, center_frequency=161.0e6, seed=7,
     center_frequency : float
         Absolute frequency in Hz of baseband 0 Hz.
     seed : int
-        Seed for ``np.random.default_rng``; the same seed, rate and duration
-        always give identical samples.
+        Non-negative seed; ``np.random.SeedSequence(seed)`` is split into one
+        ``np.random.default_rng`` stream per emission and one for the front
+        end, so the same seed, rate and duration always give identical samples.
     interferer_offset : float or None
         Centre of the 200 kHz interferer as an offset from the capture centre
         in Hz.  None places it at ``interferer_offset_for(48e3)``, 306.5 kHz:
@@ -386,7 +387,8 @@ def make_scenario(*, fs=2.4e6, duration=4.0, center_frequency=161.0e6, seed=7,
         if edge > limit:
             raise ChannelizerError(
                 f"fs: {fs!r} Hz is too low for {p.name} at {format_hz(p.offset)} "
-                f"(content must lie within +-0.45 fs; need fs >= {format_hz(edge / _USABLE_FRACTION)})"
+                f"(content must lie within +-0.45 fs; "
+                f"need fs >= {format_hz(edge / _USABLE_FRACTION)})"
             )
     half = _INTERFERER_BANDWIDTH / 2 + _INTERFERER_EDGE
     if abs(interferer_offset) + half > limit:
@@ -414,7 +416,8 @@ def make_scenario(*, fs=2.4e6, duration=4.0, center_frequency=161.0e6, seed=7,
             native, fs_c, pad = _qpsk(rng, n, fs)
             edge = (1 + _RRC_ROLLOFF) * _SYMBOL_RATE / 2 + 2e3
         keyed[p.name] = plateaus
-        native *= 10.0 ** (p.level_dbfs / 20.0) / math.sqrt(_plateau_power(native, fs_c, pad, plateaus))
+        power = _plateau_power(native, fs_c, pad, plateaus)
+        native *= 10.0 ** (p.level_dbfs / 20.0) / math.sqrt(power)
         _place(acc, native, fs_c, pad, p.offset, fs, edge)
 
     rng_i, rng_front = streams[len(_PLAN)], streams[len(_PLAN) + 1]
@@ -440,11 +443,10 @@ def make_scenario(*, fs=2.4e6, duration=4.0, center_frequency=161.0e6, seed=7,
     # Levels as they are in the samples: the IQ imbalance multiplies the wanted
     # signal's power by |a|^2 and white noise's by |a|^2 + |b|^2.
     phi = math.radians(_IQ_PHASE_DEG)
-    a2 = abs((1 + _IQ_GAIN * np.exp(1j * phi)) / 2) ** 2
-    b2 = abs((1 - _IQ_GAIN * np.exp(-1j * phi)) / 2) ** 2
-    gain_db = 10 * math.log10(a2) + 20 * math.log10(scale)
     a = (1 + _IQ_GAIN * np.exp(1j * phi)) / 2
     b = (1 - _IQ_GAIN * np.exp(-1j * phi)) / 2
+    gain_db = 10 * math.log10(abs(a) ** 2) + 20 * math.log10(scale)
+    noise_gain_db = 10 * math.log10(abs(a) ** 2 + abs(b) ** 2) + 20 * math.log10(scale)
     leak_out = (a * leak + b * np.conj(leak)) * scale
 
     channels = sorted(
@@ -462,12 +464,13 @@ def make_scenario(*, fs=2.4e6, duration=4.0, center_frequency=161.0e6, seed=7,
         ),
         key=lambda ch: ch.frequency,
     )
+    role = "broadband hash from a failing switch-mode supply in the equipment hut"
     if default_interferer:
-        role = ("broadband hash from a failing switch-mode supply in the equipment hut, "
-                "centred three times 48 kHz above ridge-ch3 so that it folds onto ridge-ch3 "
-                "after down-sampling to 48 ksps without an anti-alias filter")
-    else:
-        role = "broadband hash from a failing switch-mode supply in the equipment hut"
+        target = next(p for p in _PLAN if p.name == _FOLD_TARGET)
+        order = round((interferer_offset - target.offset) / _DEFAULT_FS_OUT)
+        role += (f", centred {order} x {format_hz(_DEFAULT_FS_OUT)} above {_FOLD_TARGET} so that "
+                 f"it folds onto {_FOLD_TARGET} after down-sampling to "
+                 f"{format_hz(_DEFAULT_FS_OUT, 'sps')} without an anti-alias filter")
     interferer = ScenarioChannel(
         name=_INTERFERER_NAME,
         frequency=center_frequency + interferer_offset,
@@ -485,7 +488,7 @@ def make_scenario(*, fs=2.4e6, duration=4.0, center_frequency=161.0e6, seed=7,
         interferer=interferer,
         description=_describe(fs, duration, center_frequency, channels, interferer),
         seed=int(seed),
-        noise_dbfs_per_hz=_NOISE_DBFS_PER_HZ + 10 * math.log10(a2 + b2) + 20 * math.log10(scale),
+        noise_dbfs_per_hz=_NOISE_DBFS_PER_HZ + noise_gain_db,
         dc_leak_dbfs=20 * math.log10(abs(leak_out)),
         iq_gain=_IQ_GAIN,
         iq_phase_deg=_IQ_PHASE_DEG,
@@ -578,12 +581,14 @@ def _voice(rng, t, fs_c):
         s += length + (rng.uniform(0.3, 0.8) if rng.random() < 0.15 else rng.uniform(0.03, 0.15))
     # A few harmonics of a slowly wandering pitch, weighted like formants.
     f0 = rng.uniform(100.0, 220.0)
-    pitch = f0 * (1 + 0.06 * np.sin(2 * np.pi * rng.uniform(0.5, 1.5) * t + rng.uniform(0, 2 * np.pi)))
+    wander = np.sin(2 * np.pi * rng.uniform(0.5, 1.5) * t + rng.uniform(0, 2 * np.pi))
+    pitch = f0 * (1 + 0.06 * wander)
     phase = 2 * np.pi * np.cumsum(pitch) / fs_c
     tones = np.zeros(n)
     for k in rng.choice(np.arange(2, 16), size=5, replace=False):
         if _VOICE_BAND[0] < k * f0 < _VOICE_BAND[1]:
-            tones += rng.uniform(0.3, 1.0) / np.sqrt(k) * np.sin(k * phase + rng.uniform(0, 2 * np.pi))
+            weight = rng.uniform(0.3, 1.0) / np.sqrt(k)
+            tones += weight * np.sin(k * phase + rng.uniform(0, 2 * np.pi))
     hiss = 0.3 * rng.standard_normal(n)
     sos = signal.butter(4, _VOICE_BAND, btype="bandpass", fs=fs_c, output="sos")
     audio = signal.sosfilt(sos, env * (tones + hiss))

@@ -83,7 +83,8 @@ def test_description_names_the_scene_and_every_emission(scene):
 
 # --- levels -------------------------------------------------------------------
 
-NAMES = ["ridge-ch1", "ridge-ch2", "ridge-ch3", "ridge-ch4", "ridge-ch5", "ridge-data", "ridge-hash"]
+NAMES = ["ridge-ch1", "ridge-ch2", "ridge-ch3", "ridge-ch4", "ridge-ch5", "ridge-data",
+         "ridge-hash"]
 
 
 @pytest.mark.parametrize("name", NAMES)
@@ -209,7 +210,8 @@ def test_iq_imbalance_keeps_i_dtype_and_input():
     assert y.dtype == np.complex64
     assert np.array_equal(y.real, x.real)  # I is the reference branch
     assert np.array_equal(x, before)
-    assert apply_iq_imbalance(x.astype(np.complex128), gain=1.0, phase_deg=0.0).dtype == np.complex128
+    wide = apply_iq_imbalance(x.astype(np.complex128), gain=1.0, phase_deg=0.0)
+    assert wide.dtype == np.complex128
     with pytest.raises(ChannelizerError, match="complex"):
         apply_iq_imbalance(x.real, gain=1.0, phase_deg=0.0)
 
@@ -225,7 +227,9 @@ def test_scene_shows_the_strong_channels_image(scene):
 # --- the folding interferer -----------------------------------------------------------
 
 
-@pytest.mark.parametrize("fs_out, order", [(48e3, None), (48e3, -4), (40e3, None), (96e3, None), (25e3, 7)])
+@pytest.mark.parametrize(
+    "fs_out, order", [(48e3, None), (48e3, -4), (40e3, None), (96e3, None), (25e3, 7)]
+)
 def test_interferer_offset_for_lands_on_the_target_after_down_sampling(scene, fs_out, order):
     # Down-sampling by M without a filter maps f onto f mod fs/M (Oppenheim &
     # Schafer, DTSP 3rd ed., sec. 4.6, from memory): a tone at the returned
