@@ -306,36 +306,50 @@ def choose_cic_order(decimation, *, fs, fp, ds, differential_delay=1, max_order=
 
 
 @functools.lru_cache(maxsize=256)
-def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds):
-    """FIR at the CIC's output rate whose passband is ``1/|H_cic|`` on ``[0, fp]``.
+def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None):
+    """FIR whose passband is ``1/|H_cic|`` on ``[0, fp]``: it undoes the CIC's droop.
 
     Minimax fit by Lawson's algorithm (iteratively reweighted least squares) of a
-    symmetric odd-length FIR; a decimation by 2 adds its alias band
-    ``[fs/2 - fp, fs/2]`` as a stopband, and without decimation that band is kept
-    low as a guard so that the stage never amplifies.
+    symmetric odd-length FIR running at ``fs`` (default: the CIC's output rate).
+    Its stopbands are the alias bands of its own decimation; without decimation
+    the band ``[fs/2 - fp, fs/2]`` is kept low as a guard so that the stage never
+    amplifies.  Used both for a separate compensator and for a channel FIR that
+    carries the compensation itself.
 
     Returns
     -------
     FirDesign or None
+
+    References
+    ----------
+    C. L. Lawson, "Contributions to the theory of linear least maximum
+    approximation", Ph.D. thesis, UCLA, 1961 (from memory); the CIC response is
+    Hogenauer's (1981).
     """
-    fs = fs_cic / cic.decimation
-    if fp >= fs / 4.0:
-        return None
+    fs = fs_cic / cic.decimation if fs is None else fs
+    if decimation == 1:
+        if fp >= fs / 4.0:
+            return None
+        stop = [(fs / 2.0 - fp, fs / 2.0)]
+        ds_stage = max(ds, 1e-2)
+    else:
+        stop = _merge(alias_bands(fs, decimation, fp), min_gap=0.0)
+        if stop[0][0] <= fp:
+            return None
+        ds_stage = ds
 
     def target(f):
         return 1.0 / np.abs(cic.response(f, fs=fs_cic))
-
-    stop = [(fs / 2.0 - fp, fs / 2.0)]
-    f_pb = _dense(0.0, fp, 120)
-    f_sb = _dense(stop[0][0], stop[0][1], 60)
-    t_pb = target(f_pb)
-    ds_stage = ds if decimation == 2 else max(ds, 1e-2)
 
     def shaping(f):
         return np.abs(cic.response(f, fs=fs_cic))
 
     def make(n):
         k = (n - 1) // 2
+        pts = max(60, 3 * k)
+        f_pb = _dense(0.0, fp, 2 * pts)
+        f_sb = np.concatenate([_dense(lo, hi, pts * max(1.0, (hi - lo) / fp)) for lo, hi in stop])
+        t_pb = target(f_pb)
         idx = np.arange(k + 1)
         f = np.concatenate([f_pb, f_sb])
         basis = np.cos(2 * np.pi * np.outer(f, idx) / fs)
@@ -344,9 +358,13 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds):
         w0 = np.concatenate([1.0 / (dp * t_pb), np.full(f_sb.size, 1.0 / ds_stage)])
         w = np.ones_like(t)
         a = None
-        for _ in range(25):
-            sw = np.sqrt(w) * w0
-            a = np.linalg.lstsq(basis * sw[:, None], t * sw, rcond=None)[0]
+        for _ in range(20):
+            ww = w * w0**2
+            gram = (basis * ww[:, None]).T @ basis
+            try:
+                a = np.linalg.solve(gram, (basis * ww[:, None]).T @ t)
+            except np.linalg.LinAlgError:
+                a = np.linalg.lstsq(basis * np.sqrt(ww)[:, None], t * np.sqrt(ww), rcond=None)[0]
             e = np.abs(basis @ a - t) * w0
             w = w * e
             w /= w.sum()
@@ -354,8 +372,8 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds):
         h = np.concatenate([a[:0:-1], [a[0]], a[1:]])
         return _check(h, fs=fs, fp=fp, stopbands=stop, dp=dp, ds=ds_stage, target=target, shaping=shaping) + (h,)
 
-    est = herrmann_length(dp, ds_stage, (fs / 2.0 - 2.0 * fp) / fs)
+    est = herrmann_length(dp, ds_stage, (stop[0][0] - fp) / fs)
     n, res = _search_length(make, est, step_limit=30)
-    if n is None or n > 161:
+    if n is None or n > 1001:
         return None
     return FirDesign(res[3], res[1], res[2])

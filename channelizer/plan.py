@@ -124,14 +124,14 @@ class Plan:
             "ripple_db": v.positive(spec, "ripple_db", "spec.ripple_db"),
             "rejection_db": v.positive(spec, "rejection_db", "spec.rejection_db"),
         }
-        bits = v.mapping(spec, "bits", "spec.bits")
-        spec_out["bits"] = {k: v.integer(bits, k, f"spec.bits.{k}", lo=1, hi=64) for k in ("input", "output")}
-        if "coefficient" in bits:
-            spec_out["bits"]["coefficient"] = v.integer(bits, "coefficient", "spec.bits.coefficient", lo=2, hi=64)
         if "objective" in spec:
             if spec["objective"] not in ("cpu", "hardware"):
                 raise ChannelizerError(f"{source}: spec.objective must be cpu or hardware, got {spec['objective']!r}")
             spec_out["objective"] = spec["objective"]
+        bits = v.mapping(spec, "bits", "spec.bits")
+        spec_out["bits"] = {k: v.integer(bits, k, f"spec.bits.{k}", lo=1, hi=64) for k in ("input", "output")}
+        if "coefficient" in bits:
+            spec_out["bits"]["coefficient"] = v.integer(bits, "coefficient", "spec.bits.coefficient", lo=2, hi=64)
         if spec.get("clock") is not None:
             spec_out["clock"] = v.positive(spec, "clock", "spec.clock")
         raw_stages = data.get("stages")

@@ -189,9 +189,10 @@ def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
         comp = design_compensator(cic, fp, c, fs_cic=fs, dp=dp_stage, ds=ds)
         if comp is None:
             return None, "no compensator up to 159 taps meets its share of the ripple"
-        stages.append(FirStage(c, comp.taps, "fir", "compensator"))
+        taps = np.array(comp.taps)
+        stages.append(FirStage(c, tuple(taps / taps.sum()), "fir", "compensator"))
         rate /= c
-    elif cic is not None:
+    elif cic is not None and (h or d_f == 1):
         droop = 1.0 - abs(cic.response(np.array([fp]), fs=fs)[0])
         if droop > dp_stage:
             return None, f"uncompensated CIC droop {20 * math.log10(1 / (1 - droop)):.3f} dB exceeds its ripple share"
@@ -206,7 +207,11 @@ def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
         stages.append(FirStage(2, tuple(g), "halfband", "halfband"))
         rate /= 2
     if d_f > 1:
-        fir = design_decimator(fp, d_f, fs=rate, dp=dp_stage, ds=ds)
+        if cic is not None and not c and not h:
+            # no separate compensator: the channel FIR undoes the CIC's droop itself
+            fir = design_compensator(cic, fp, d_f, fs_cic=fs, dp=dp_stage, ds=ds, fs=rate)
+        else:
+            fir = design_decimator(fp, d_f, fs=rate, dp=dp_stage, ds=ds)
         if fir is None:
             return None, f"no channel FIR decimating by {d_f} meets the spec"
         taps = np.array(fir.taps)
@@ -367,13 +372,13 @@ def _to_plan(cand, spec):
         "multipliers": total.multipliers,
     }
     spec_d = {
-        "ripple_db": spec.ripple_db,
-        "rejection_db": spec.rejection_db,
+        "ripple_db": float(spec.ripple_db),
+        "rejection_db": float(spec.rejection_db),
         "objective": spec.objective,
         "bits": {"input": spec.input_bits, "output": spec.output_bits, "coefficient": spec.coefficient_bits},
     }
     if spec.clock is not None:
-        spec_d["clock"] = spec.clock
+        spec_d["clock"] = float(spec.clock)
     return Plan(
         input_rate=float(spec.input_rate),
         output_rate=float(rates[-1]),
