@@ -165,6 +165,11 @@ def main(argv=None):
     except ChannelizerError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
+    except BrokenPipeError:
+        # output piped into a program that stopped reading (e.g. head): not an error
+        with contextlib.suppress(OSError):
+            sys.stdout = open(os.devnull, "w")
+        return 0
     except KeyboardInterrupt:
         print("error: interrupted; no output was completed", file=sys.stderr)
         return 130
