@@ -111,6 +111,102 @@ def _cmd_show(args):
     return 0
 
 
+def _open_capture(args):
+    from .captures import open_capture
+
+    return open_capture(
+        args.capture,
+        input_format=getattr(args, "input_format", None),
+        rate=getattr(args, "rate", None),
+        center=getattr(args, "center", None),
+    )
+
+
+def _read_text(path, what):
+    try:
+        with open(path, "rb") as fh:
+            data = fh.read(16 * 2**20 + 1)
+    except OSError as exc:
+        raise ChannelizerError(f"{path}: cannot read {what} ({exc.strerror})") from None
+    if len(data) > 16 * 2**20:
+        raise ChannelizerError(f"{path}: larger than 16 MiB; not a {what}")
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise ChannelizerError(f"{path}: not UTF-8 text; not a {what}") from None
+
+
+def _cmd_extract(args):
+    from .channels import parse_channel_list, parse_channel_option
+    from .extraction import run_extraction
+
+    entries = [parse_channel_option(c) for c in args.channel or []]
+    base = "."
+    if args.channels:
+        entries += parse_channel_list(_read_text(args.channels, "channel list"), source=args.channels)
+        base = os.path.dirname(os.path.abspath(args.channels))
+    if not entries:
+        raise ChannelizerError("no channel to extract: give --channel NAME=FREQ or --channels FILE")
+    capture = _open_capture(args)
+    result = run_extraction(
+        capture,
+        entries,
+        args.out,
+        plan_path=args.plan,
+        base_dir=base,
+        output_format=args.output_format,
+        bit_true=args.bit_true,
+        plots=not args.no_plots,
+        progress=not args.quiet,
+        nonfinite="zero" if args.zero_nonfinite else "error",
+        block_size=args.block_size,
+    )
+    from .units import format_hz
+
+    if capture.nonfinite_count:
+        print(f"warning: {capture.nonfinite_count} non-finite samples were replaced by zero", file=sys.stderr)
+    mode = "bit-true" if args.bit_true else "float"
+    print(
+        f"{capture.path}: {result.input_samples} samples at {format_hz(capture.sample_rate, 'sps')}, "
+        f"{len(result.channels)} channel(s), {mode} path, {result.seconds:.2f} s "
+        f"({result.input_samples / max(result.seconds, 1e-9) / 1e6:.1f} Msps)"
+    )
+    print(f"{'channel':<16} {'centre':>16} {'rate':>12} {'samples':>10} {'power':>11} {'delay':>9}  folding signals")
+    for ch in result.channels:
+        centre = format_hz(ch.center_frequency) if ch.center_frequency is not None else f"{ch.offset:+g} Hz"
+        flagged = sum(1 for a in ch.alias_audit if a["above_noise"])
+        print(
+            f"{ch.name:<16} {centre:>16} {format_hz(ch.output_rate, 'sps'):>12} {ch.samples:>10} "
+            f"{ch.mean_power_dbfs:>7.2f} dBFS {ch.group_delay_output_samples:>9.2f}  "
+            f"{len(ch.alias_audit)} ({flagged} above the output noise)"
+        )
+    print(f"summary written to {result.summary_path}")
+    return 0
+
+
+def _add_capture_options(p):
+    p.add_argument("capture", metavar="CAPTURE", help="SigMF recording (.sigmf-meta/.sigmf-data), two-channel WAV, or raw IQ")
+    p.add_argument("--input-format", metavar="DTYPE", help="datatype of a raw file, e.g. ci16_le, cf32_le, cu8")
+    p.add_argument("--rate", type=_rate("rate"), help="sample rate of a raw file")
+    p.add_argument("--center", type=_rate("center"), help="centre frequency of a raw file (optional)")
+
+
+def _register_extract(sub):
+    e = sub.add_parser("extract", help="extract channels from a capture with a plan's chain", description="Run a plan's exact chain over a capture and write each channel as its own SigMF recording.")
+    _add_capture_options(e)
+    e.add_argument("--plan", metavar="PLAN.yaml", help="plan for every channel without its own")
+    e.add_argument("--channel", action="append", metavar="NAME=FREQ", help="channel to extract; FREQ absolute when the capture states its centre, +/- for an offset (repeatable)")
+    e.add_argument("--channels", metavar="FILE", help="YAML channel list: name, frequency, optional plan")
+    e.add_argument("--out", required=True, metavar="DIR", help="output folder")
+    e.add_argument("--output-format", choices=["cf32_le", "ci16_le"], default="cf32_le")
+    e.add_argument("--bit-true", action="store_true", help="integer arithmetic as hardware would do it")
+    e.add_argument("--no-plots", action="store_true", help="skip overview.png and the per-channel plots")
+    e.add_argument("--zero-nonfinite", action="store_true", help="replace NaN/inf samples by zero instead of refusing")
+    e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
+    e.add_argument("--quiet", action="store_true", help="no progress bar")
+    e.set_defaults(func=_cmd_extract)
+
+
 def _check_output_path(path):
     folder = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(folder):
@@ -153,7 +249,7 @@ def build_parser():
 
 
 #: Registration functions of further commands, each adding one subparser.
-_EXTRA_COMMANDS = []
+_EXTRA_COMMANDS = [_register_extract]
 
 
 def main(argv=None):

@@ -1,5 +1,7 @@
 """Figures of a plan's response: per-stage and composite, and the folded view."""
 
+import math
+
 import numpy as np
 
 from .response import alias_intervals, composite_response, fold
@@ -119,3 +121,49 @@ def _image_step(plan):
         if isinstance(st, ResamplerStage):
             return rate
     return 0.0
+
+
+def plot_overview(psd, channels, path, *, title=None):
+    """Input power spectral density with each channel's passband marked.
+
+    ``channels``: sequence of (name, centre in Hz on the PSD's axis, bandwidth).
+    """
+    fig, axes = new_figure(1, 1, size=(11, 5))
+    ax = axes[0, 0]
+    ax.plot(psd.freqs, psd.dbfs_per_hz(), lw=0.7, color="tab:blue")
+    lo, hi = ax.get_ylim()
+    for i, (name, centre, bw) in enumerate(channels):
+        ax.axvspan(centre - bw / 2, centre + bw / 2, color=f"C{(i % 8) + 1}", alpha=0.25)
+        ax.annotate(name, (centre, hi), xytext=(0, -12 - 11 * (i % 3)), textcoords="offset points", ha="center", fontsize=8)
+    ax.set_xlabel("frequency" if psd.center_frequency else "offset from centre")
+    ax.set_ylabel("PSD (dBFS/Hz)")
+    _hz_axis(ax)
+    ax.grid(alpha=0.3)
+    ax.set_title(title or f"input spectrum (Welch, {psd.window} window, {psd.bin_hz:.4g} Hz bins) and extracted channels")
+    save_figure(fig, path)
+
+
+def plot_channel(psd, *, name, bandwidth, alias_floor_dbfs_per_hz=None, audit=(), path, title=None):
+    """One output's spectrum with its passband edges and the predicted alias floor.
+
+    ``audit``: folded signals as dicts with ``landing_offset_hz`` and
+    ``output_level_dbfs_per_hz`` drawn as markers.
+    """
+    fig, axes = new_figure(1, 1, size=(10, 5))
+    ax = axes[0, 0]
+    f = psd.freqs - psd.center_frequency
+    ax.plot(f, psd.dbfs_per_hz(), lw=0.8, color="tab:blue", label="output spectrum")
+    for edge in (-bandwidth / 2, bandwidth / 2):
+        ax.axvline(edge, color="tab:green", ls="--", lw=1)
+    ax.axvspan(-bandwidth / 2, bandwidth / 2, color="tab:green", alpha=0.06, label="passband")
+    if alias_floor_dbfs_per_hz is not None and math.isfinite(alias_floor_dbfs_per_hz):
+        ax.axhline(alias_floor_dbfs_per_hz, color="tab:red", ls=":", lw=1.2, label="predicted alias floor")
+    for i, a in enumerate(audit):
+        ax.plot([a["landing_offset_hz"]], [a["output_level_dbfs_per_hz"]], marker="v", color="tab:red" if a.get("above_noise") else "tab:orange", ls="none", label="folded signal (predicted)" if i == 0 else None)
+    ax.set_xlabel("offset from channel centre")
+    ax.set_ylabel("PSD (dBFS/Hz)")
+    _hz_axis(ax)
+    ax.grid(alpha=0.3)
+    ax.legend(loc="lower center", fontsize=8)
+    ax.set_title(title or f"{name}: output at {psd.fs / 1e3:g} ksps")
+    save_figure(fig, path)

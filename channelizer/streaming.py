@@ -152,6 +152,7 @@ class _Rotator:
 
 # ----------------------------------------------------------------------------- FIR engine
 _BLAS_SINGLE_THREAD_MNK = 4 * 65536
+_DIRECT_BLOCK = 16384  # blocks up to this many samples are copied into one buffer
 
 
 def _rows_per_block(L, D):
@@ -209,11 +210,12 @@ class _BlockFir:
             np.matmul(samples[r0 * P : r1 * P].reshape(r1 - r0, P), self._G, out=out[r0:r1])
 
     def run(self, x):
+        """Feed ``x`` (1-D complex64, may be strided); return the outputs now due."""
         D, B, P, Q = self._D, self._B, self._P, self._Q
         hist = self._hist
-        n_in = self.n_in
-        total = n_in + x.size
-        s = self.n_out * D - (Q - 1) * P - D + 1  # global index of hist[0]
+        hs = hist.size
+        n = x.size
+        total = self.n_in + n
         m_end = total // D
         n_new = m_end - self.n_out
         if n_new <= 0:
@@ -222,42 +224,40 @@ class _BlockFir:
             return _EMPTY
         nro = -(-n_new // B)
         nrows = nro + Q - 1
-
-        def gather(g0, length):
-            """Global samples [g0, g0 + length) from history, block and zero padding."""
-            buf = np.zeros(length, dtype=np.complex64)
-            a = g0 - s
-            if a < hist.size:
-                m = min(hist.size - a, length)
-                buf[:m] = hist[a : a + m]
-            b0 = max(g0, n_in) - n_in
-            b1 = min(g0 + length, total) - n_in
-            if b1 > b0:
-                o = max(g0, n_in) - g0
-                buf[o : o + b1 - b0] = x[b0:b1]
-            return buf
-
-        rh = min(nrows, -(-hist.size // P))  # rows that begin in the history
-        full = min(nrows, (total - s) // P)  # rows that end inside the data
-        rt = max(rh, full)
+        need = nrows * P  # samples from hist[0] that the rows cover
+        have = hs + n
         Z = np.empty((nrows, Q * B), dtype=np.complex64)
-        if rh:
-            self._product(gather(s, rh * P), Z[:rh])
-        if rt > rh:
-            o = s + rh * P - n_in
-            self._product(x[o : o + (rt - rh) * P], Z[rh:rt])
-        if nrows > rt:
-            self._product(gather(s + rt * P, (nrows - rt) * P), Z[rt:])
+        if n <= max(_DIRECT_BLOCK, 4 * (hs + P + D)):
+            # small block: one buffer of history, block and zero padding
+            buf = np.empty(max(need, have), dtype=np.complex64)
+            buf[:hs] = hist
+            buf[hs:have] = x
+            buf[have:] = 0
+            self._product(buf[:need], Z)
+            self._hist = buf[n_new * D : have].copy()
+        else:
+            # large block: rows inside the block are read in place
+            x = np.ascontiguousarray(x)
+            rh = -(-hs // P)  # rows that begin in the history
+            rt = max(rh, min(nrows, have // P))  # rows before any that pass the end
+            head = np.empty(rh * P, dtype=np.complex64)
+            head[:hs] = hist
+            head[hs:] = x[: rh * P - hs]
+            self._product(head, Z[:rh])
+            self._product(x[rh * P - hs : rt * P - hs], Z[rh:rt])
+            if nrows > rt:
+                tail = np.zeros((nrows - rt) * P, dtype=np.complex64)
+                tail[: have - rt * P] = x[rt * P - hs :]
+                self._product(tail, Z[rt:])
+            self._hist = x[n_new * D - hs :].copy()
         if Q == 1:
             y = Z.reshape(-1)[:n_new]
         else:
             Z3 = Z.reshape(nrows, Q, B)
-            y = Z3[Q - 1 : Q - 1 + nro, 0, :].copy()
-            for qq in range(1, Q):
+            y = np.add(Z3[Q - 1 : Q - 1 + nro, 0, :], Z3[Q - 2 : Q - 2 + nro, 1, :])
+            for qq in range(2, Q):
                 y += Z3[Q - 1 - qq : Q - 1 - qq + nro, qq, :]
             y = y.reshape(-1)[:n_new]
-        s_new = s + n_new * D
-        self._hist = gather(s_new, total - s_new)
         self.n_in = total
         self.n_out = m_end
         return y
@@ -502,7 +502,7 @@ class HalfbandDecimator:
         if npairs == 0:
             return _EMPTY
         pairs = x[: 2 * npairs].reshape(npairs, 2)
-        y = self._even.run(np.ascontiguousarray(pairs[:, 0]))
+        y = self._even.run(pairs[:, 0])
         odd = pairs[:, 1]
         K = self._K
         h = self._odd_hist
