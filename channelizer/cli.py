@@ -78,6 +78,7 @@ def _cmd_plan(args):
         coefficient_bits=args.coefficient_bits,
         objective=args.objective,
         clock=args.clock,
+        stopband_edge=args.stopband_edge,
     )
     result = plan_chain(spec)
     print(format_plan(result.plan))
@@ -207,6 +208,37 @@ def _register_extract(sub):
     e.set_defaults(func=_cmd_extract)
 
 
+def _cmd_survey(args):
+    from .atomic import write_text_atomic
+    from .channels import dump_channel_list
+    from .survey import format_survey, plot_survey, survey_capture
+
+    capture = _open_capture(args)
+    for path in (args.plot, args.channels_out):
+        if path:
+            _check_output_path(path)
+    result = survey_capture(capture, resolution=args.resolution, threshold_db=args.threshold_db, progress=not args.quiet)
+    print(format_survey(result))
+    if args.plot:
+        plot_survey(result, args.plot)
+        print(f"\nsurvey plot written to {args.plot}")
+    if args.channels_out:
+        write_text_atomic(args.channels_out, dump_channel_list(result.channel_list()))
+        print(f"channel list written to {args.channels_out} (edit names, add plan: to each)")
+    return 0
+
+
+def _register_survey(sub):
+    v = sub.add_parser("survey", help="spectrum, spectrogram and occupied signals of a capture", description="Survey a capture: Welch PSD, spectrogram, noise floor and the occupied signals.")
+    _add_capture_options(v)
+    v.add_argument("--plot", metavar="FILE.png", help="write the PSD and spectrogram figure")
+    v.add_argument("--resolution", type=_rate("resolution"), help="frequency resolution (default: rate / 4096)")
+    v.add_argument("--threshold-db", type=_positive_float, default=10.0, help="detection threshold above the noise floor (default 10)")
+    v.add_argument("--channels-out", metavar="FILE", help="write the detected signals as a channel list for extract --channels")
+    v.add_argument("--quiet", action="store_true", help="no progress bar")
+    v.set_defaults(func=_cmd_survey)
+
+
 def _check_output_path(path):
     folder = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(folder):
@@ -234,6 +266,7 @@ def build_parser():
     q.add_argument("--coefficient-bits", type=_bits, default=18, help="FIR coefficient width for --objective hardware (default 18)")
     q.add_argument("--objective", choices=["cpu", "hardware"], default="cpu", help="what to minimise (default cpu)")
     q.add_argument("--clock", type=_rate("clock"), default=None, help="hardware clock (default: the input rate)")
+    q.add_argument("--stopband-edge", type=_rate("stopband edge"), default=None, help="also attenuate everything beyond this offset from the channel centre (removes the neighbours; default: only what folds onto the passband)")
     q.add_argument("--out", metavar="FILE.yaml", help="write the plan file")
     q.add_argument("--plot", metavar="FILE.png", help="write the response figure")
     q.set_defaults(func=_cmd_plan)
@@ -249,7 +282,7 @@ def build_parser():
 
 
 #: Registration functions of further commands, each adding one subparser.
-_EXTRA_COMMANDS = [_register_extract]
+_EXTRA_COMMANDS = [_register_extract, _register_survey]
 
 
 def main(argv=None):

@@ -183,7 +183,7 @@ def _search_length(make, estimate, *, step_limit=40):
 
 
 @functools.lru_cache(maxsize=512)
-def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=False):
+def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=False, protect=None, stop_edge=None):
     """Equiripple low-pass for decimation by ``decimation``, alias-aware.
 
     Parameters
@@ -201,18 +201,27 @@ def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=Fals
     full_stopband : bool
         Attenuate everything from the first alias band edge to ``fs/2`` instead
         of the alias bands alone.
+    protect : float, optional
+        Half-width of the band kept free of aliases (default ``fp``).
+    stop_edge : float, optional
+        Attenuate everything from this frequency to ``fs/2`` (a final stage that
+        also removes the neighbours).
 
     Returns
     -------
     FirDesign or None
         None when no length up to the limit meets the target.
     """
-    bands = alias_bands(fs, decimation, fp)
-    if not bands:
-        raise ChannelizerError(f"decimation {decimation} at {fs:g} Hz folds nothing onto the passband")
+    protect = fp if protect is None else protect
+    if stop_edge is not None:
+        bands = [(stop_edge, fs / 2.0)]
+    else:
+        bands = alias_bands(fs, decimation, protect)
+        if not bands:
+            raise ChannelizerError(f"decimation {decimation} at {fs:g} Hz folds nothing onto the passband")
     if bands[0][0] <= fp:
         return None
-    if full_stopband:
+    if full_stopband and stop_edge is None:
         bands = [(bands[0][0], fs / 2.0)]
     else:
         bands = _merge(bands, min_gap=(bands[0][0] - fp) * 0.5)
@@ -225,8 +234,8 @@ def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=Fals
 
     n, res = _search_length(make, est)
     if n is None:
-        if not full_stopband:
-            return design_decimator(fp, decimation, fs=fs, dp=dp, ds=ds, gain=gain, full_stopband=True)
+        if not full_stopband and stop_edge is None:
+            return design_decimator(fp, decimation, fs=fs, dp=dp, ds=ds, gain=gain, full_stopband=True, protect=protect)
         return None
     return FirDesign(res[3], res[1], res[2])
 
@@ -306,7 +315,7 @@ def choose_cic_order(decimation, *, fs, fp, ds, differential_delay=1, max_order=
 
 
 @functools.lru_cache(maxsize=256)
-def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None):
+def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=None, stop_edge=None):
     """FIR whose passband is ``1/|H_cic|`` on ``[0, fp]``: it undoes the CIC's droop.
 
     Minimax fit by Lawson's algorithm (iteratively reweighted least squares) of a
@@ -314,7 +323,9 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None):
     Its stopbands are the alias bands of its own decimation; without decimation
     the band ``[fs/2 - fp, fs/2]`` is kept low as a guard so that the stage never
     amplifies.  Used both for a separate compensator and for a channel FIR that
-    carries the compensation itself.
+    carries the compensation itself.  ``protect`` is the half-width kept free of
+    aliases (default ``fp``); ``stop_edge`` makes the stopband run from there to
+    ``fs/2`` (a final stage that also removes the neighbours).
 
     Returns
     -------
@@ -327,13 +338,17 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None):
     Hogenauer's (1981).
     """
     fs = fs_cic / cic.decimation if fs is None else fs
-    if decimation == 1:
-        if fp >= fs / 4.0:
+    protect = fp if protect is None else protect
+    if stop_edge is not None:
+        stop = [(stop_edge, fs / 2.0)]
+        ds_stage = ds
+    elif decimation == 1:
+        if protect >= fs / 4.0:
             return None
-        stop = [(fs / 2.0 - fp, fs / 2.0)]
+        stop = [(fs / 2.0 - protect, fs / 2.0)]
         ds_stage = max(ds, 1e-2)
     else:
-        stop = _merge(alias_bands(fs, decimation, fp), min_gap=0.0)
+        stop = _merge(alias_bands(fs, decimation, protect), min_gap=0.0)
         if stop[0][0] <= fp:
             return None
         ds_stage = ds

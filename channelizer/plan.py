@@ -134,6 +134,8 @@ class Plan:
             spec_out["bits"]["coefficient"] = v.integer(bits, "coefficient", "spec.bits.coefficient", lo=2, hi=64)
         if spec.get("clock") is not None:
             spec_out["clock"] = v.positive(spec, "clock", "spec.clock")
+        if spec.get("stopband_edge") is not None:
+            spec_out["stopband_edge"] = v.positive(spec, "stopband_edge", "spec.stopband_edge")
         raw_stages = data.get("stages")
         if not isinstance(raw_stages, list) or not raw_stages:
             raise ChannelizerError(f"{source}: stages must be a non-empty list")

@@ -112,9 +112,11 @@ def _layouts(d_int, fs, fp):
     return out
 
 
-def _estimate(layout, fs, fp, dp, ds):
+def _estimate(layout, fs, fp, dp, ds, *, protect=None, edge=None):
     """Multiplies per input sample estimated from Herrmann's length formula."""
     r, c, h, d_f = layout
+    fp0 = fp
+    fp = fp if protect is None else protect
     rate = fs / r
     total = 0.0
     if c:
@@ -126,7 +128,10 @@ def _estimate(layout, fs, fp, dp, ds):
         n = herrmann_length(dp, ds, max(0.5 - 2 * fp / rate, 1e-6))
         total += (n / 2 + 1) / 2 * (rate / fs)
         rate /= 2
-    if d_f > 1:
+    if edge is not None:
+        n = herrmann_length(dp, ds, (edge - fp0) / rate)
+        total += n / d_f * rate / fs
+    elif d_f > 1:
         fo = rate / d_f
         if fo - fp <= fp:
             return math.inf
@@ -135,7 +140,7 @@ def _estimate(layout, fs, fp, dp, ds):
     return total
 
 
-def _describe(layout, resampler=None):
+def _describe(layout, resampler=None, edge=None):
     r, c, h, d_f = layout
     parts = []
     if r > 1:
@@ -143,7 +148,7 @@ def _describe(layout, resampler=None):
     if c:
         parts.append(f"comp/{c}")
     parts += ["HB/2"] * h
-    if d_f > 1:
+    if d_f > 1 or (edge is not None and not resampler):
         parts.append(f"FIR/{d_f}")
     if resampler:
         parts.append(f"x{resampler[0]}/{resampler[1]}")
@@ -172,13 +177,20 @@ def _quantize(stage, bits):
 
 
 def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
-    """Design every stage of one layout; returns (stages, reason)."""
+    """Design every stage of one layout; returns (stages, reason).
+
+    Intermediate stages keep ``spec.protected_edge`` free of aliases; with a
+    stopband edge, the last stage also attenuates everything beyond it.
+    """
     r, c, h, d_f = layout
+    prot = spec.protected_edge
+    edge = spec.stopband_edge
     stages = []
     rate = fs
     cic = None
+    final_fir = d_f > 1 or (edge is not None and not resampler)
     if r > 1:
-        order = choose_cic_order(r, fs=fs, fp=fp, ds=ds)
+        order = choose_cic_order(r, fs=fs, fp=prot, ds=ds)
         if order is None:
             return None, "no CIC order up to 8 rejects its alias bands enough"
         regs = cic_registers(order, r, 1, input_bits=spec.input_bits, output_bits=spec.output_bits)
@@ -186,32 +198,33 @@ def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
         stages.append(cic)
         rate /= r
     if c:
-        comp = design_compensator(cic, fp, c, fs_cic=fs, dp=dp_stage, ds=ds)
+        comp = design_compensator(cic, fp, c, fs_cic=fs, dp=dp_stage, ds=ds, protect=prot)
         if comp is None:
-            return None, "no compensator up to 159 taps meets its share of the ripple"
+            return None, "no compensator meets its share of the ripple"
         taps = np.array(comp.taps)
         stages.append(FirStage(c, tuple(taps / taps.sum()), "fir", "compensator"))
         rate /= c
-    elif cic is not None and (h or d_f == 1):
+    elif cic is not None and (h or not final_fir):
         droop = 1.0 - abs(cic.response(np.array([fp]), fs=fs)[0])
         if droop > dp_stage:
             return None, f"uncompensated CIC droop {20 * math.log10(1 / (1 - droop)):.3f} dB exceeds its ripple share"
     for _ in range(h):
-        hb = design_halfband(fp, fs=rate, delta=min(dp_stage, ds))
+        hb = design_halfband(prot, fs=rate, delta=min(dp_stage, ds))
         if hb is None:
-            return None, f"no half-band serves a {2 * fp:g} Hz passband at {rate:g} Hz"
+            return None, f"no half-band serves a {2 * prot:g} Hz band at {rate:g} Hz"
         g = np.array(hb.taps)
         # exact unit DC gain with the centre tap kept at 0.5 and the zeros kept zero
         others = np.arange(len(g)) != len(g) // 2
         g[others] *= 0.5 / g[others].sum()
         stages.append(FirStage(2, tuple(g), "halfband", "halfband"))
         rate /= 2
-    if d_f > 1:
+    if final_fir:
+        last = edge if not resampler else None
         if cic is not None and not c and not h:
             # no separate compensator: the channel FIR undoes the CIC's droop itself
-            fir = design_compensator(cic, fp, d_f, fs_cic=fs, dp=dp_stage, ds=ds, fs=rate)
+            fir = design_compensator(cic, fp, d_f, fs_cic=fs, dp=dp_stage, ds=ds, fs=rate, protect=prot, stop_edge=last)
         else:
-            fir = design_decimator(fp, d_f, fs=rate, dp=dp_stage, ds=ds)
+            fir = design_decimator(fp, d_f, fs=rate, dp=dp_stage, ds=ds, protect=prot, stop_edge=last)
         if fir is None:
             return None, f"no channel FIR decimating by {d_f} meets the spec"
         taps = np.array(fir.taps)
@@ -219,7 +232,7 @@ def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
         rate /= d_f
     if resampler:
         up, down = resampler
-        res = design_decimator(fp, down, fs=rate * up, dp=dp_stage, ds=ds, gain=float(up))
+        res = design_decimator(fp, down, fs=rate * up, dp=dp_stage, ds=ds, gain=float(up), protect=prot, stop_edge=edge)
         if res is None:
             return None, f"no resampler filter for x{up}/{down} meets the spec"
         taps = np.array(res.taps)
@@ -236,6 +249,9 @@ def _targets(spec):
     fs = spec.input_rate
     if spec.output_rate is None:
         d = default_decimation(fs, spec.bandwidth)
+        if spec.stopband_edge is not None:
+            # the output band must reach beyond the stopband edge
+            d = min(d, int(math.ceil(fs / (2.0 * spec.stopband_edge))) - 1)
         if d < 2:
             raise ChannelizerError(
                 f"bandwidth {spec.bandwidth:g} Hz leaves no room to decimate {fs:g} Hz "
@@ -283,11 +299,11 @@ def plan_chain(spec):
     ds = spec.stopband_delta
     candidates = []
     for d_int, resampler, fs_out in _targets(spec):
-        for layout in _layouts(d_int, fs, fp):
+        for layout in _layouts(d_int, fs, spec.protected_edge):
             r, c, h, d_f = layout
-            n_ripple = (1 if c or r > 1 else 0) + h + (d_f > 1) + (resampler is not None)
+            n_ripple = (1 if c or r > 1 else 0) + h + (d_f > 1 or spec.stopband_edge is not None) + (resampler is not None)
             dp_stage = spec.passband_delta / max(n_ripple, 1)
-            est = _estimate(layout, fs, fp, dp_stage, ds)
+            est = _estimate(layout, fs, fp, dp_stage, ds, protect=spec.protected_edge, edge=spec.stopband_edge)
             if resampler:
                 up, down = resampler
                 rate = fs / d_int * up
@@ -304,13 +320,13 @@ def plan_chain(spec):
     for est, layout, resampler, dp_stage, d_int in candidates[:MAX_DESIGNED]:
         if est > 3.0 * best_cost and len(tried) >= 4:
             continue
-        cand = Candidate(_describe(layout, resampler), est)
+        cand = Candidate(_describe(layout, resampler, spec.stopband_edge), est)
         stages, reason = None, ""
         for tighten in (1.0, 0.5, 0.25):
             stages, reason = _build(layout, spec, fs, fp, dp_stage * tighten, ds * tighten, resampler, d_int)
             if stages is None:
                 break
-            pred = predict(stages, fs=fs, bandwidth=spec.bandwidth)
+            pred = predict(stages, fs=fs, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge)
             reason = _shortfall(pred, spec)
             if not reason:
                 break
@@ -352,6 +368,8 @@ def _shortfall(pred, spec):
         msgs.append(f"ripple {pred.passband_ripple_db:.4f} dB over {spec.ripple_db:g}")
     if pred.alias_rejection_db < spec.rejection_db:
         msgs.append(f"rejection {pred.alias_rejection_db:.1f} dB under {spec.rejection_db:g}")
+    if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < spec.rejection_db:
+        msgs.append(f"stopband rejection {pred.adjacent_rejection_db:.1f} dB under {spec.rejection_db:g}")
     return ", ".join(msgs)
 
 
@@ -379,6 +397,9 @@ def _to_plan(cand, spec):
     }
     if spec.clock is not None:
         spec_d["clock"] = float(spec.clock)
+    if spec.stopband_edge is not None:
+        spec_d["stopband_edge"] = float(spec.stopband_edge)
+        predicted["stopband_rejection_db"] = round(cand.prediction.adjacent_rejection_db, 3)
     return Plan(
         input_rate=float(spec.input_rate),
         output_rate=float(rates[-1]),

@@ -63,7 +63,7 @@ def plot_plan(plan, path, *, title=None):
     rates = chain_rates(plan.stages, fs=fs)
     rows, _ = stage_rows(plan)
     for st, rate, row in zip(plan.stages, rates, rows):
-        ax.plot(f, _db(st.response(f, fs=rate)), lw=0.8, alpha=0.7, label=f"{row['stage']}: {row['kind']} {row['ratio']}")
+        ax.plot(f, _db(st.response(f, fs=rate)), lw=0.6, alpha=0.45, label=f"{row['stage']}: {row['kind']} {row['ratio']}")
     h = composite_response(plan.stages, f, fs=fs)
     ax.plot(f, _db(h), color="black", lw=1.4, label="composite")
     mask = np.zeros(f.shape, dtype=bool)
@@ -97,12 +97,17 @@ def plot_plan(plan, path, *, title=None):
     if xs:
         bx.plot(np.concatenate(xs), np.concatenate(ys), color="tab:blue", lw=0.6, alpha=0.5)
     worst = plan.predicted.get("alias_rejection_db", float("nan"))
-    pb = np.linspace(-fp, fp, 401)
-    bx.plot(pb, _db(composite_response(plan.stages, pb, fs=fs)), color="black", lw=1.4, label="channel (direct path)")
+    pb = np.linspace(-fs_out / 2, fs_out / 2, 1201)
+    bx.plot(pb, _db(composite_response(plan.stages, pb, fs=fs)), color="black", lw=1.4, label="direct path (no folding)")
     bx.plot([], [], color="tab:blue", lw=0.8, label=f"{len(intervals)} folded alias bands")
     bx.axhline(-target, color="tab:red", ls="--", lw=1, label=f"target -{target:g} dB")
     bx.axvspan(-fp, fp, color="tab:green", alpha=0.08, label="passband")
-    bx.set_xlim(-fp * 1.05, fp * 1.05)
+    edge = plan.spec.get("stopband_edge")
+    if edge:
+        for e in (-edge, edge):
+            bx.axvline(e, color="tab:purple", ls="-.", lw=1)
+        bx.plot([], [], color="tab:purple", ls="-.", label=f"stopband edge +-{edge / 1e3:g} kHz")
+    bx.set_xlim(-fs_out / 2, fs_out / 2)
     bx.set_ylim(-(target + 60.0), 5)
     bx.set_xlabel("output frequency (offset from channel centre)")
     bx.set_ylabel("level relative to passband (dB)")

@@ -15,7 +15,7 @@ import numpy as np
 
 from .stages import ResamplerStage, chain_rates
 
-__all__ = ["composite_response", "alias_intervals", "Prediction", "predict", "fold"]
+__all__ = ["composite_response", "alias_intervals", "landing_intervals", "Prediction", "predict", "fold"]
 
 
 def fold(f, fs):
@@ -90,6 +90,29 @@ def alias_intervals(stages, *, fs, bandwidth):
     return out
 
 
+def landing_intervals(stages, *, fs, lo, hi):
+    """Input-frequency intervals that land at ``lo <= |g| <= hi`` in the output band.
+
+    Returns a list of (lo, hi, image) like :func:`alias_intervals`, the direct
+    path included.
+    """
+    fs_out = chain_rates(stages, fs=fs)[-1]
+    res, fs_r = _resampler_input_rate(stages, fs)
+    n_images = res.interpolation if res is not None else 1
+    out = []
+    for k in range(n_images):
+        offset = k * fs_r
+        j_lo = int(np.floor((-fs / 2.0 + offset - hi) / fs_out))
+        j_hi = int(np.ceil((fs / 2.0 + offset + hi) / fs_out))
+        for j in range(j_lo, j_hi + 1):
+            for a, b in ((lo, hi), (-hi, -lo)):
+                x0 = max(j * fs_out - offset + a, -fs / 2.0)
+                x1 = min(j * fs_out - offset + b, fs / 2.0)
+                if x0 < x1:
+                    out.append((x0, x1, k))
+    return out
+
+
 @dataclass(frozen=True)
 class Prediction:
     """Figures computed from a chain's composite response.
@@ -105,31 +128,24 @@ class Prediction:
         Input frequency (offset from the centre) where that minimum occurs.
     passband_gain_db : float
         Gain at DC.
+    adjacent_rejection_db : float or None
+        With a stopband edge: the smallest attenuation of anything that lands
+        beyond the edge in the output band (the neighbours, direct or folded).
     """
 
     passband_ripple_db: float
     alias_rejection_db: float
     worst_alias_hz: float
     passband_gain_db: float
+    adjacent_rejection_db: float | None = None
 
 
 def _grid(lo, hi, n):
     return np.linspace(lo, hi, n)
 
 
-def predict(stages, *, fs, bandwidth, points_per_band=24):
-    """Predicted passband ripple and alias rejection of a chain.
-
-    The alias bands are sampled at ``points_per_band`` points each, edges included.
-    """
-    fp = bandwidth / 2.0
-    dc = abs(composite_response(stages, np.array([0.0]), fs=fs)[0])
-    pb = _grid(0.0, fp, 257)
-    pb = np.concatenate([-pb[::-1], pb])
-    mag_pb = np.abs(composite_response(stages, pb, fs=fs))
-    ripple = 20.0 * np.log10(mag_pb.max() / mag_pb.min())
+def _worst(stages, intervals, fs, dc, points_per_band):
     worst_db, worst_f = np.inf, float("nan")
-    intervals = alias_intervals(stages, fs=fs, bandwidth=bandwidth)
     by_image = {}
     for lo, hi, k in intervals:
         by_image.setdefault(k, []).append(_grid(lo, hi, points_per_band))
@@ -139,9 +155,33 @@ def predict(stages, *, fs, bandwidth, points_per_band=24):
         i = int(np.argmin(att))
         if att[i] < worst_db:
             worst_db, worst_f = float(att[i]), float(f[i])
+    return worst_db, worst_f
+
+
+def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24):
+    """Predicted passband ripple and alias rejection of a chain.
+
+    The alias bands are sampled at ``points_per_band`` points each, edges included.
+    With ``stopband_edge`` the rejection of everything landing beyond it is
+    computed too.
+    """
+    fp = bandwidth / 2.0
+    dc = abs(composite_response(stages, np.array([0.0]), fs=fs)[0])
+    pb = _grid(0.0, fp, 257)
+    pb = np.concatenate([-pb[::-1], pb])
+    mag_pb = np.abs(composite_response(stages, pb, fs=fs))
+    ripple = 20.0 * np.log10(mag_pb.max() / mag_pb.min())
+    intervals = alias_intervals(stages, fs=fs, bandwidth=bandwidth)
+    worst_db, worst_f = _worst(stages, intervals, fs, dc, points_per_band)
+    adjacent = None
+    if stopband_edge is not None:
+        fs_out = chain_rates(stages, fs=fs)[-1]
+        land = landing_intervals(stages, fs=fs, lo=stopband_edge, hi=fs_out / 2.0)
+        adjacent, _ = _worst(stages, land, fs, dc, points_per_band)
     return Prediction(
         passband_ripple_db=float(ripple),
         alias_rejection_db=float(worst_db),
         worst_alias_hz=worst_f,
         passband_gain_db=float(20.0 * np.log10(dc)),
+        adjacent_rejection_db=None if adjacent is None else float(adjacent),
     )

@@ -52,6 +52,10 @@ class ChainSpec:
         or multipliers needed in hardware at ``clock``.
     clock : float or None
         Hardware clock in Hz (defaults to the input rate).
+    stopband_edge : float or None
+        When given (Hz from the channel centre), everything in the output band
+        from this edge outwards is attenuated by ``rejection_db`` as well: the
+        neighbours are removed, not only kept from folding onto the passband.
     """
 
     input_rate: float
@@ -64,6 +68,7 @@ class ChainSpec:
     coefficient_bits: int = 18
     objective: Objective = "cpu"
     clock: float | None = None
+    stopband_edge: float | None = None
 
     def __post_init__(self):
         def positive(name, value):
@@ -76,6 +81,17 @@ class ChainSpec:
             positive("output rate", self.output_rate)
         if self.clock is not None:
             positive("clock", self.clock)
+        if self.stopband_edge is not None:
+            positive("stopband edge", self.stopband_edge)
+            if self.stopband_edge <= self.bandwidth / 2:
+                raise ChannelizerError(
+                    f"stopband edge {self.stopband_edge:g} Hz must lie beyond the passband edge {self.bandwidth / 2:g} Hz"
+                )
+            top = (self.output_rate or self.input_rate) / 2
+            if self.stopband_edge >= top:
+                raise ChannelizerError(
+                    f"stopband edge {self.stopband_edge:g} Hz must lie below half the output rate ({top:g} Hz)"
+                )
         if self.bandwidth >= self.input_rate:
             raise ChannelizerError(
                 f"bandwidth {self.bandwidth:g} Hz must be below the input rate {self.input_rate:g} Hz; "
@@ -123,6 +139,11 @@ class ChainSpec:
     def passband_edge(self):
         """Passband edge in Hz (half the two-sided bandwidth)."""
         return self.bandwidth / 2.0
+
+    @property
+    def protected_edge(self):
+        """Half-width of the band that intermediate stages keep free of aliases."""
+        return self.stopband_edge if self.stopband_edge is not None else self.bandwidth / 2.0
 
     @property
     def passband_delta(self):

@@ -88,6 +88,13 @@ def format_plan(plan):
         f"Predicted passband ripple  {pred['passband_ripple_db']:.4f} dB   (target {spec['ripple_db']:g} dB)",
         f"Predicted alias rejection  {pred['alias_rejection_db']:.2f} dB   (target {spec['rejection_db']:g} dB)"
         + (f", worst at {format_hz(pred['worst_alias_hz'])} from centre" if "worst_alias_hz" in pred else ""),
+    ]
+    if "stopband_rejection_db" in pred:
+        lines.append(
+            f"Predicted stopband rejection {pred['stopband_rejection_db']:.2f} dB beyond {format_hz(spec['stopband_edge'])} "
+            f"from the channel centre (target {spec['rejection_db']:g} dB)"
+        )
+    lines += [
         f"Cost  {t.multiplies_per_input_sample:.4f} multiplies per input sample, "
         f"{t.multiplies_per_second / 1e6:.3f} M multiplies/s, {t.additions_per_second / 1e6:.3f} M additions/s, "
         f"{t.coefficients} coefficients, {t.register_bits} register bits"
