@@ -3,8 +3,11 @@
 For each signal found in the input spectrum, the part of its band that the
 channel's chain folds onto the passband is integrated through the plan's
 composite response (``|H|^2`` times the measured input density) to predict the
-level it reaches in the output, which is compared with the output's measured
-noise floor.
+level it reaches in the output, which is compared with the output's noise floor
+in the passband.  That floor is the input's estimated noise density passed at
+the chain's unit passband gain: measuring it on the output spectrum itself
+would mix in the channel's own signal and, beyond a stopband edge, the
+stopband's numerical floor.
 """
 
 import math
@@ -35,7 +38,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
     req : ChannelRequest
         The channel (offset from the capture centre, plan).
     result : ChannelResult, optional
-        The extracted channel; its spectrum gives the output noise floor.
+        The extracted channel (unused; kept so callers can pass it).
 
     Returns
     -------
@@ -49,9 +52,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
     fs = plan.input_rate
     fp = plan.bandwidth / 2
     chan_centre = psd.center_frequency + req.offset
-    noise_out = None
-    if result is not None and result.spectrum is not None:
-        noise_out = 10 * math.log10(estimate_noise_floor(result.spectrum))
+    noise_out = 10 * math.log10(estimate_noise_floor(psd))
     intervals = alias_intervals(plan.stages, fs=fs, bandwidth=plan.bandwidth)
     step = _image_step(plan.stages, fs)
     bin_hz = psd.bin_hz
@@ -90,7 +91,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
             "output_level_dbfs_per_hz": round(density, 2),
             "landing_offset_hz": round(land, 1),
             "output_noise_floor_dbfs_per_hz": None if noise_out is None else round(noise_out, 2),
-            "above_noise": bool(noise_out is not None and density > noise_out),
+            "above_noise": bool(density > noise_out),
         }
         out.append(entry)
     out.sort(key=lambda e: -e["output_level_dbfs"])

@@ -22,6 +22,10 @@ def atomic_output(path, mode="wb"):
     folder = os.path.dirname(os.path.abspath(path))
     fd, tmp = tempfile.mkstemp(prefix="." + os.path.basename(path) + ".", suffix=".part", dir=folder)
     try:
+        # mkstemp makes the file private; give it the usual permissions of a new file
+        umask = os.umask(0)
+        os.umask(umask)
+        os.fchmod(fd, 0o666 & ~umask)
         with os.fdopen(fd, mode) as fh:
             yield fh
             fh.flush()

@@ -540,7 +540,7 @@ class IntegerChain:
                 rows.append(BitWidthRow(
                     name, "cic", r_in, r_out, width, w_out, w_out - 1 - e_out, max(regs.widths),
                     integrator_bits=tuple(regs.widths[:n]), comb_bits=tuple(regs.widths[n:]),
-                    pruned_bits=tuple(nominal.discarded), output_shift=b_last,
+                    pruned_bits=tuple(nominal.discarded), output_shift=shift,
                     rounding=(f"floor at each integrator and comb (Hogenauer pruning); last comb rounded "
                               f"half up by {shift} bits to the output"),
                     overflow=("registers wrap (harmless in a CIC); one guard bit above Hogenauer's width; "

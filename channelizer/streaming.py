@@ -302,9 +302,9 @@ class Mixer:
     delay = 0.0
 
     def __init__(self, offset, *, fs, start_index=0):
+        ratio = _exact(offset, "offset") / _exact(fs, "fs", positive=True)
         self.offset = float(offset)
         self.fs = float(fs)
-        ratio = _exact(offset, "offset") / _exact(fs, "fs", positive=True)
         self._start = _check_index(start_index)
         self._rot = _Rotator(ratio, step=1, offset=self._start)
 
@@ -416,9 +416,9 @@ class MixingFirDecimator:
     def __init__(self, taps, decimation, *, offset, fs, start_index=0):
         h = _check_taps(taps)
         self.decimation = _check_factor(decimation, "decimation")
+        ratio = _exact(offset, "offset") / _exact(fs, "fs", positive=True)
         self.offset = float(offset)
         self.fs = float(fs)
-        ratio = _exact(offset, "offset") / _exact(fs, "fs", positive=True)
         start = _check_index(start_index)
         self.taps = _read_only(h)
         self.delay = (h.size - 1) / 2.0
