@@ -48,17 +48,9 @@ def _bits(text):
 
 def read_plan(path):
     """Load a plan file, naming it in any error."""
-    from .plan import MAX_PLAN_BYTES, Plan
+    from .extraction import load_plan_file
 
-    try:
-        size = os.path.getsize(path)
-        if size > MAX_PLAN_BYTES:
-            raise ChannelizerError(f"{path}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
-        with open(path, "rb") as fh:
-            data = fh.read()
-    except OSError as exc:
-        raise ChannelizerError(f"{path}: cannot read plan ({exc.strerror})") from None
-    return Plan.from_yaml(data, source=path)
+    return load_plan_file(path)[0]
 
 
 def _cmd_plan(args):

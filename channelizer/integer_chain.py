@@ -76,10 +76,10 @@ from .fixedpoint import (
     QuantizedTaps,
     quantize_taps,
 )
-from .hogenauer import CicRegisters, cic_registers
+from .hogenauer import CicRegisters, _checked_int, cic_registers
 from .plan import Plan
 from .response import composite_response
-from .stages import CicStage, FirStage, ResamplerStage, chain_rates
+from .stages import CicStage, ResamplerStage, chain_rates
 
 __all__ = ["IntegerChain", "BitWidthTable", "BitWidthRow", "NoiseTerm", "DEFAULT_COEFFICIENT_BITS"]
 
@@ -391,10 +391,6 @@ def _real(value, name):
     return float(value)
 
 
-def _whole(value, name, lo, hi):
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral) or not lo <= value <= hi:
-        raise ChannelizerError(f"{name} must be an integer from {lo} to {hi}, got {value!r}")
-    return int(value)
 
 
 # ----------------------------------------------------------------------------- chain
@@ -464,25 +460,26 @@ class IntegerChain:
             raise ChannelizerError(f"fs {rate:g} Hz differs from the plan's input rate {plan.input_rate:g} Hz")
         if abs(offset) >= rate / 2:
             raise ChannelizerError(f"offset {offset:g} Hz is outside +-fs/2 = +-{rate / 2:g} Hz")
-        g = _whole(internal_guard_bits, "internal_guard_bits", 1, 16)
+        g = _checked_int(internal_guard_bits, "internal_guard_bits", low=1, high=16)
         if coefficient_bits is not None:
-            coefficient_bits = _whole(coefficient_bits, "coefficient_bits", 2, 32)
+            coefficient_bits = _checked_int(coefficient_bits, "coefficient_bits", low=2, high=32)
         bits = plan.spec["bits"]
         b_in, b_out = int(bits["input"]), int(bits["output"])
         default_coef = int(bits.get("coefficient", DEFAULT_COEFFICIENT_BITS))
         self.plan, self.offset, self.fs = plan, offset, rate
         self.input_bits, self.output_bits = b_in, b_out
-        self._coefficient_override = coefficient_bits
         rates = chain_rates(plan.stages, fs=rate)
 
         points, names, rows, coefs, qstages = [], [], [], {}, []
-        budget = []  # (name, source, mean square in that point's LSB^2 or full-scale^2, lsb scale or None)
-        # The running point: width, exponent e (full scale <= 2**e), headroom, LSB scale.
+        # NoiseTerm (already in full-scale^2), or (point, source, mean square in that
+        # point's LSB^2, LSB in full-scale units).
+        budget = []
+        # The running point: width, exponent e (full scale <= 2**e) and LSB in full-scale units.
         width, e, scale = b_in, b_in - 1, 2.0 ** -(b_in - 1)
         rows.append(BitWidthRow("input", "input", rate, rate, b_in, b_in, 0, b_in, lsb=scale))
 
         if offset != 0.0:
-            amp = _whole(nco_amplitude_bits, "nco_amplitude_bits", max(g, 2), 32)
+            amp = _checked_int(nco_amplitude_bits, "nco_amplitude_bits", low=max(g, 2), high=32)
             nco = PhaseAccumulatorNco(offset, fs=rate, input_bits=b_in, accumulator_bits=accumulator_bits,
                                       table_bits=nco_table_bits, amplitude_bits=amp)
             peak = 2 ** (amp - 1) - 1

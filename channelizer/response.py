@@ -60,6 +60,28 @@ def _resampler_input_rate(stages, fs):
     return None, rates[-1]
 
 
+def _intervals(stages, fs, bands, *, skip_direct):
+    """Input intervals whose image paths land in any of ``bands`` (output-band offsets)."""
+    fs_out = chain_rates(stages, fs=fs)[-1]
+    res, fs_r = _resampler_input_rate(stages, fs)
+    n_images = res.interpolation if res is not None else 1
+    reach = max(abs(e) for band in bands for e in band)
+    out = []
+    for k in range(n_images):
+        offset = k * fs_r
+        j_lo = int(np.floor((-fs / 2.0 + offset - reach) / fs_out))
+        j_hi = int(np.ceil((fs / 2.0 + offset + reach) / fs_out))
+        for j in range(j_lo, j_hi + 1):
+            if skip_direct and k == 0 and j == 0:
+                continue
+            for a, b in bands:
+                lo = max(j * fs_out - offset + a, -fs / 2.0)
+                hi = min(j * fs_out - offset + b, fs / 2.0)
+                if lo < hi:
+                    out.append((lo, hi, k))
+    return out
+
+
 def alias_intervals(stages, *, fs, bandwidth):
     """Input-frequency intervals that the chain folds onto the final passband.
 
@@ -70,24 +92,7 @@ def alias_intervals(stages, *, fs, bandwidth):
         them; the direct passband ``[-bw/2, bw/2]`` on path 0 is excluded.
     """
     fp = bandwidth / 2.0
-    fs_out = chain_rates(stages, fs=fs)[-1]
-    res, fs_r = _resampler_input_rate(stages, fs)
-    n_images = res.interpolation if res is not None else 1
-    out = []
-    for k in range(n_images):
-        offset = k * fs_r
-        # x + offset in j*fs_out + [-fp, fp]
-        j_lo = int(np.floor((-fs / 2.0 + offset - fp) / fs_out))
-        j_hi = int(np.ceil((fs / 2.0 + offset + fp) / fs_out))
-        for j in range(j_lo, j_hi + 1):
-            if k == 0 and j == 0:
-                continue
-            lo = j * fs_out - offset - fp
-            hi = j * fs_out - offset + fp
-            lo, hi = max(lo, -fs / 2.0), min(hi, fs / 2.0)
-            if lo < hi:
-                out.append((lo, hi, k))
-    return out
+    return _intervals(stages, fs, [(-fp, fp)], skip_direct=True)
 
 
 def landing_intervals(stages, *, fs, lo, hi):
@@ -96,21 +101,7 @@ def landing_intervals(stages, *, fs, lo, hi):
     Returns a list of (lo, hi, image) like :func:`alias_intervals`, the direct
     path included.
     """
-    fs_out = chain_rates(stages, fs=fs)[-1]
-    res, fs_r = _resampler_input_rate(stages, fs)
-    n_images = res.interpolation if res is not None else 1
-    out = []
-    for k in range(n_images):
-        offset = k * fs_r
-        j_lo = int(np.floor((-fs / 2.0 + offset - hi) / fs_out))
-        j_hi = int(np.ceil((fs / 2.0 + offset + hi) / fs_out))
-        for j in range(j_lo, j_hi + 1):
-            for a, b in ((lo, hi), (-hi, -lo)):
-                x0 = max(j * fs_out - offset + a, -fs / 2.0)
-                x1 = min(j * fs_out - offset + b, fs / 2.0)
-                if x0 < x1:
-                    out.append((x0, x1, k))
-    return out
+    return _intervals(stages, fs, [(lo, hi), (-hi, -lo)], skip_direct=False)
 
 
 @dataclass(frozen=True)
