@@ -12,7 +12,8 @@ one chain with a CIC and a half-band, and times, in this process:
 
 Each timing is the best of a few runs (the capture is then in the page cache,
 having just been written).  Peak memory is read in fresh subprocesses, one per
-measurement, as the operating system's peak resident set (``ru_maxrss``) and as
+measurement, as the operating system's peak resident set (``VmHWM``, or
+``ru_maxrss`` where there is no ``/proc``) and as
 the peak of memory allocated while working (``tracemalloc``, which sees numpy's
 arrays but not the pages of the memory-mapped capture).  Speeds and memory are
 reported as ratios against the reference run, which has the same reader and the
@@ -79,8 +80,27 @@ _MB = 1e6
 
 
 # ----------------------------------------------------------------------------- reports
+class _JsonReport:
+    """JSON round trip for the report dataclasses (plain JSON types in every field)."""
+
+    def to_dict(self):
+        return asdict(self)
+
+    def to_json(self):
+        """The report as JSON text (indented, ends with a newline)."""
+        return json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
+
+    @classmethod
+    def from_dict(cls, data):
+        return cls(**data)
+
+    @classmethod
+    def from_json(cls, text):
+        return cls.from_dict(json.loads(text))
+
+
 @dataclass
-class BenchReport:
+class BenchReport(_JsonReport):
     """Figures of one :func:`run_benchmark` run (plain JSON types throughout).
 
     Attributes
@@ -121,29 +141,14 @@ class BenchReport:
     checks: dict
     environment: dict
 
-    def to_dict(self):
-        return asdict(self)
-
-    def to_json(self):
-        """The report as JSON text (indented, ends with a newline)."""
-        return json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
-
-    @classmethod
-    def from_dict(cls, data):
-        return cls(**data)
-
-    @classmethod
-    def from_json(cls, text):
-        return cls.from_dict(json.loads(text))
-
     @property
     def passed(self):
-        """True when every target is met and every check holds."""
+        """True when every target is met and every output length is right."""
         return all(t["met"] for t in self.targets.values()) and self.checks["lengths_ok"]
 
 
 @dataclass
-class SoakReport:
+class SoakReport(_JsonReport):
     """Figures of one :func:`run_soak` run.
 
     Attributes
@@ -157,7 +162,7 @@ class SoakReport:
     seconds, input_msps, realtime_factor : float
         Extraction time in the subprocess and the input rate it reached.
     memory : dict
-        ``peak_rss_mb`` (``ru_maxrss``), ``baseline_rss_mb`` (after imports),
+        ``peak_rss_mb`` (``VmHWM``), ``baseline_rss_mb`` (after imports),
         ``mapped_file_mb`` (pages of the capture's memory map resident at the end),
         ``peak_heap_mb`` (``tracemalloc``), ``peak_rss_less_mapped_mb``.
     targets : dict
@@ -183,22 +188,9 @@ class SoakReport:
     generation_seconds: float
     environment: dict = field(default_factory=dict)
 
-    def to_dict(self):
-        return asdict(self)
-
-    def to_json(self):
-        return json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
-
-    @classmethod
-    def from_dict(cls, data):
-        return cls(**data)
-
-    @classmethod
-    def from_json(cls, text):
-        return cls.from_dict(json.loads(text))
-
     @property
     def passed(self):
+        """True when every target is met and every output length is right."""
         return self.lengths_ok and all(t["met"] for t in self.targets.values())
 
 
@@ -351,8 +343,10 @@ def _plan_summary(plan, ident):
             parts.append(f"x{st.interpolation}/{st.decimation} {st.num_taps} taps")
         else:
             stages.append({"kind": st.kind, "role": st.role, "decimation": st.decimation, "taps": st.num_taps})
-            name = "half-band" if st.kind == "halfband" else f"FIR ({st.role})"
-            parts.append(f"{name}/{st.decimation} {st.num_taps} taps")
+            if st.kind == "halfband":
+                parts.append(f"half-band/{st.decimation} {st.num_taps} taps")
+            else:
+                parts.append(f"FIR/{st.decimation} {st.num_taps} taps ({st.role})")
     return {
         "layout": " > ".join(parts),
         "stages": stages,
@@ -377,6 +371,11 @@ def _expected_outputs(plan, n):
 
 
 def _environment():
+    """Versions and machine; the load average (taken at the end) says how busy the machine was."""
+    try:
+        load = [round(v, 2) for v in os.getloadavg()]
+    except (AttributeError, OSError):
+        load = None
     return {
         "numpy": np.__version__,
         "scipy": scipy.__version__,
@@ -384,6 +383,9 @@ def _environment():
         "platform": platform.platform(),
         "machine": platform.machine(),
         "cpu_count": os.cpu_count(),
+        "load_average": load,
+        "blas_threads_env": {k: os.environ[k] for k in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+                             if k in os.environ},
     }
 
 
@@ -404,6 +406,36 @@ def _status_kb(key):
     return None
 
 
+def _mapped_kb(path):
+    """Resident kB of this process's memory maps of file ``path`` (Linux ``smaps``), or None."""
+    target = os.path.realpath(path)
+    total = 0.0
+    inside = False
+    try:
+        with open("/proc/self/smaps") as fh:
+            for line in fh:
+                head = line.split(None, 5)
+                if len(head) >= 5 and "-" in head[0] and not head[0].endswith(":"):
+                    inside = len(head) == 6 and head[5].rstrip("\n") == target
+                elif inside and head and head[0] == "Rss:":
+                    total += float(head[1])
+    except OSError:
+        return None
+    return total
+
+
+def _peak_rss_kb(resource):
+    """Peak resident set of this process, kB.
+
+    ``VmHWM`` where Linux gives it: ``ru_maxrss`` of a freshly started child
+    also counts the parent's resident set at the fork (Linux keeps the larger
+    of the old and new address spaces' peaks across ``exec``), so it would
+    charge the benchmark's own memory to the measurement.
+    """
+    hwm = _status_kb("VmHWM")
+    return hwm if hwm is not None else _rss_kb(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+
+
 def _child_main():
     """Entry of a measurement subprocess: a JSON job on stdin, a JSON result on stdout."""
     import resource
@@ -415,7 +447,7 @@ def _child_main():
         data = fh.read()
     plan = Plan.from_yaml(data, source=job["plan"])
     taps = np.load(job["taps"]).astype(np.float32) if job["mode"] == "reference" else None
-    baseline = _rss_kb(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+    baseline = _peak_rss_kb(resource)
     tracemalloc.start()
     t0 = time.perf_counter()
     if job["mode"] == "reference":
@@ -433,8 +465,8 @@ def _child_main():
     seconds = time.perf_counter() - t0
     _, heap_peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
-    peak = _rss_kb(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
-    mapped = _status_kb("RssFile")
+    peak = _peak_rss_kb(resource)
+    mapped = _mapped_kb(capture.data_path)
     out = {
         "seconds": seconds,
         "samples": samples,
@@ -522,29 +554,15 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
     channels = _count(channels, "channels", MAX_CHANNELS)
     repeats = _count(repeats, "repeats", 100)
     n = int(round(seconds * SAMPLE_RATE))
+    _check_run(n, f"seconds {seconds:g}", workdir)
     spec = BENCH_SPEC
-    down_total = SAMPLE_RATE / spec.output_rate
-    if n < 16 * down_total:
-        raise ChannelizerError(
-            f"seconds {seconds:g} gives {n} samples; the benchmark needs at least {int(16 * down_total)}"
-        )
-    if workdir is not None and not os.path.isdir(workdir):
-        raise ChannelizerError(f"{workdir}: not a folder")
     offsets = channel_offsets(channels)
-    one_offset = 0.0
-    assert one_offset in offsets
+    one_offset = 0.0  # channel_offsets always holds the capture centre
 
     with tempfile.TemporaryDirectory(prefix="channelizer-bench-", dir=workdir) as tmp:
         _check_space(tmp, 4 * n)
         _say(progress, f"planning {spec.bandwidth / 1e3:g} kHz at {spec.output_rate / 1e3:g} kHz")
-        plan = plan_chain(spec).plan
-        if not _has_cic_and_halfband(plan):  # pragma: no cover - guards a planner change
-            raise RuntimeError("the benchmark chain no longer holds a CIC and a half-band; choose another spec")
-        plan_yaml = plan.to_yaml().encode("utf-8")
-        ident = plan_identity(plan_yaml)
-        plan_path = os.path.join(tmp, "plan.yaml")
-        with open(plan_path, "wb") as fh:
-            fh.write(plan_yaml)
+        plan, ident, plan_path = _plan_file(tmp)
         down = int(round(plan.total_decimation))
         ref = reference_filter(spec, fs=float(SAMPLE_RATE))
         taps_path = os.path.join(tmp, "reference_taps.npy")
@@ -659,6 +677,27 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
     )
 
 
+def _check_run(n, given, workdir):
+    """Refuse a run too short to give outputs, or a work folder that is not one."""
+    least = 16 * int(round(SAMPLE_RATE / BENCH_SPEC.output_rate))
+    if n < least:
+        raise ChannelizerError(f"{given} gives {n} samples; the run needs at least {least}")
+    if workdir is not None and not os.path.isdir(workdir):
+        raise ChannelizerError(f"{workdir}: not a folder")
+
+
+def _plan_file(folder):
+    """Plan :data:`BENCH_SPEC`, write it to ``folder/plan.yaml``; returns (plan, identity, path)."""
+    plan = plan_chain(BENCH_SPEC).plan
+    if not _has_cic_and_halfband(plan):  # pragma: no cover - guards a planner change
+        raise RuntimeError("the benchmark chain no longer holds a CIC and a half-band; choose another spec")
+    data = plan.to_yaml().encode("utf-8")
+    path = os.path.join(folder, "plan.yaml")
+    with open(path, "wb") as fh:
+        fh.write(data)
+    return plan, plan_identity(data), path
+
+
 def _check_space(folder, need_bytes):
     free = shutil.disk_usage(folder).free
     if free < need_bytes * 1.1 + 64 * 2**20:
@@ -697,20 +736,12 @@ def run_soak(*, gigabytes=4.0, channels=4, workdir=None, progress=True):
     gigabytes = _positive(gigabytes, "gigabytes")
     channels = _count(channels, "channels", MAX_CHANNELS)
     n = int(gigabytes * 1e9) // 4
-    spec = BENCH_SPEC
-    down_total = SAMPLE_RATE / spec.output_rate
-    if n < 16 * down_total:
-        raise ChannelizerError(f"gigabytes {gigabytes:g} gives {n} samples; the soak needs at least {int(16 * down_total)}")
-    if workdir is not None and not os.path.isdir(workdir):
-        raise ChannelizerError(f"{workdir}: not a folder")
+    _check_run(n, f"gigabytes {gigabytes:g}", workdir)
+    down_total = int(round(SAMPLE_RATE / BENCH_SPEC.output_rate))
     offsets = channel_offsets(channels)
     with tempfile.TemporaryDirectory(prefix="channelizer-soak-", dir=workdir) as tmp:
-        _check_space(tmp, 4 * n + 8 * n * channels // int(down_total))
-        plan = plan_chain(spec).plan
-        plan_yaml = plan.to_yaml().encode("utf-8")
-        plan_path = os.path.join(tmp, "plan.yaml")
-        with open(plan_path, "wb") as fh:
-            fh.write(plan_yaml)
+        _check_space(tmp, 4 * n + 8 * n * channels // down_total)
+        plan, ident, plan_path = _plan_file(tmp)
         base = os.path.join(tmp, "soak")
         _say(progress, f"writing {n:,} samples ({4 * n / 1e9:.2f} GB) in {tmp}")
         gen_s = _write_capture(base, n, tones=[int(o) + _TONE_OFFSET_HZ for o in offsets], progress=progress,
@@ -740,7 +771,7 @@ def run_soak(*, gigabytes=4.0, channels=4, workdir=None, progress=True):
         gigabytes=4 * n / 1e9,
         samples=n,
         channels=channels,
-        plan=_plan_summary(plan, plan_identity(plan_yaml)),
+        plan=_plan_summary(plan, ident),
         seconds=round(got["seconds"], 4),
         input_msps=round(rate, 3),
         realtime_factor=round(rate * 1e6 / SAMPLE_RATE, 4),
@@ -814,7 +845,9 @@ def _fmt_ratio(v):
 
 
 def _fmt_env(env):
-    return (f"machine: {env['cpu_count']} CPUs, {env['platform']}; numpy {env['numpy']}, scipy {env['scipy']}, "
+    load = env.get("load_average")
+    busy = f", load average {load[0]:g}" if load else ""
+    return (f"machine: {env['cpu_count']} CPUs{busy}, {env['platform']}; numpy {env['numpy']}, scipy {env['scipy']}, "
             f"Python {env['python']}")
 
 

@@ -162,7 +162,7 @@ class Capture:
         if nonfinite == "error":
             first = int(offset) + int(np.argmax(bad))
             raise ChannelizerError(
-                f"{self.path}: sample {first} is NaN or infinite (replace such samples by 0 with nonfinite='zero')"
+                f"{self.path}: sample {first} is NaN or infinite (replace such samples by 0 with --zero-nonfinite)"
             )
         block[bad] = 0
         self.nonfinite_count += int(np.count_nonzero(bad))

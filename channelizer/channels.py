@@ -6,10 +6,11 @@ an offset.
 """
 
 from dataclasses import dataclass
-import math
+import sys
 
 import yaml
 
+from .datatypes import _shown
 from .errors import ChannelizerError
 from .names import safe_output_name
 from .units import parse_frequency
@@ -35,8 +36,9 @@ def _frequency(value, where):
     if isinstance(value, str):
         text = value.strip()
         return parse_frequency(text, name=where), text[:1] in "+-"
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise ChannelizerError(f"{where}: expected a frequency in Hz, got {value!r}")
+    # abs(value) <= max float: finite, and no OverflowError for an integer of any length
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not abs(value) <= sys.float_info.max:
+        raise ChannelizerError(f"{where}: expected a frequency in Hz, got {_shown(value)}")
     return float(value), value < 0
 
 
@@ -45,7 +47,10 @@ def parse_channel_option(text):
     name, sep, freq = text.partition("=")
     if not sep or not freq.strip():
         raise ChannelizerError(f"--channel {text!r}: expected NAME=FREQ, e.g. voice1=+25k")
-    name = safe_output_name(name.strip())
+    try:
+        name = safe_output_name(name.strip())
+    except ChannelizerError as exc:
+        raise ChannelizerError(f"--channel {_shown(text)}: {exc}") from None
     f, off = _frequency(freq, f"--channel {name}")
     return ChannelEntry(name, f, off)
 
@@ -58,6 +63,10 @@ def parse_channel_list(text, *, source="channel list"):
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}" if mark else ""
         raise ChannelizerError(f"{source}: malformed YAML{where}") from None
+    except RecursionError:
+        raise ChannelizerError(f"{source}: malformed YAML: nested too deeply to read") from None
+    except ValueError as exc:  # e.g. an integer of more digits than Python converts
+        raise ChannelizerError(f"{source}: a YAML value cannot be read ({str(exc).splitlines()[0]})") from None
     if isinstance(data, dict) and "channels" in data:
         data = data["channels"]
     if not isinstance(data, list) or not data:
@@ -71,14 +80,18 @@ def parse_channel_list(text, *, source="channel list"):
         if unknown:
             raise ChannelizerError(f"{where}: unknown key(s) {', '.join(sorted(map(str, unknown)))}")
         if not isinstance(item.get("name"), str):
-            raise ChannelizerError(f"{where}: name must be text, got {item.get('name')!r}")
-        name = safe_output_name(item["name"])
+            got = "a list" if isinstance(item.get("name"), list) else _shown(item.get("name"))
+            raise ChannelizerError(f"{where}: name must be text, got {got}")
+        try:
+            name = safe_output_name(item["name"])
+        except ChannelizerError as exc:
+            raise ChannelizerError(f"{where}: {exc}") from None
         if "frequency" not in item:
             raise ChannelizerError(f"{where} ({name}): frequency is missing")
         f, off = _frequency(item["frequency"], f"{where} ({name}) frequency")
         plan = item.get("plan")
         if plan is not None and not isinstance(plan, str):
-            raise ChannelizerError(f"{where} ({name}): plan must be a file path, got {plan!r}")
+            raise ChannelizerError(f"{where} ({name}): plan must be a file path, got {_shown(plan)}")
         out.append(ChannelEntry(name, f, off, plan))
     return out
 

@@ -9,6 +9,10 @@ import contextlib
 import os
 import sys
 
+# One BLAS thread: the stages run many small matrix products, which OpenBLAS's own
+# threads slow down badly on a busy machine.  Set before numpy is first imported.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
 from .errors import ChannelizerError
 from .units import parse_frequency
 
@@ -265,6 +269,53 @@ def _register_demo(sub):
     d.set_defaults(func=_cmd_demo)
 
 
+def _cmd_verify(args):
+    from .atomic import write_text_atomic
+    from .verify import plot_verification, verify_plan
+
+    plan = read_plan(args.plan)
+    for path in (args.plot, args.json):
+        if path:
+            _check_output_path(path)
+    v = verify_plan(plan, bit_true=args.bit_true, tones=args.tones)
+    print("\n".join(v.summary_lines()))
+    if args.plot:
+        plot_verification(v, args.plot)
+        print(f"plot written to {args.plot}")
+    if args.json:
+        write_text_atomic(args.json, v.to_json())
+        print(f"measurements written to {args.json}")
+    return 0 if v.meets_spec else 1
+
+
+def _register_verify(sub):
+    v = sub.add_parser("verify", help="measure a plan with tone sweeps through the real processor", description="Drive the extract processor with test tones in the passband and in every band that folds onto it; compare measured with predicted. Exit 0 when the measured figures meet the plan's spec, 1 when not, 2 for bad input.")
+    v.add_argument("plan", metavar="PLAN.yaml")
+    v.add_argument("--bit-true", action="store_true", help="run the integer chain")
+    v.add_argument("--tones", type=int, default=None, help="number of alias-band tones (default: the library's choice)")
+    v.add_argument("--plot", metavar="FILE.png", help="measured points over the predicted response")
+    v.add_argument("--json", metavar="FILE", help="write every measurement as JSON")
+    v.set_defaults(func=_cmd_verify)
+
+
+def _cmd_export(args):
+    from .export import export_plan
+
+    plan = read_plan(args.plan)
+    report = export_plan(plan, args.out, coefficient_bits=args.coefficient_bits, vectors=args.vectors)
+    print(report.format())
+    return 0
+
+
+def _register_export(sub):
+    x = sub.add_parser("export", help="coefficients, bit widths and test vectors for hardware", description="Write a plan's quantised coefficients (CSV, C header, $readmemh hex), its bit-width table and bit-true test vectors.")
+    x.add_argument("plan", metavar="PLAN.yaml")
+    x.add_argument("--out", required=True, metavar="DIR", help="output folder (created; an earlier export there is replaced)")
+    x.add_argument("--coefficient-bits", type=_bits, default=None, help="coefficient width (default: the plan's)")
+    x.add_argument("--vectors", type=int, default=4096, help="input samples in the test vectors (default 4096; 0 for none)")
+    x.set_defaults(func=_cmd_export)
+
+
 def _check_output_path(path):
     folder = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(folder):
@@ -308,7 +359,7 @@ def build_parser():
 
 
 #: Registration functions of further commands, each adding one subparser.
-_EXTRA_COMMANDS = [_register_extract, _register_survey, _register_demo]
+_EXTRA_COMMANDS = [_register_extract, _register_survey, _register_verify, _register_export, _register_demo]
 
 
 def main(argv=None):

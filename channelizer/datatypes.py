@@ -21,6 +21,7 @@ Scaling (common practice; the convention this tool uses everywhere):
 
 import dataclasses
 import re
+import reprlib
 
 import numpy as np
 
@@ -69,9 +70,18 @@ class Datatype:
         return self.kind in ("i", "u")
 
 
+_REPR = reprlib.Repr()
+_REPR.maxlevel, _REPR.maxstring, _REPR.maxother, _REPR.maxlong = 3, 200, 200, 200
+
+
 def _shown(value, limit=60):
-    """``repr(value)`` cut to ``limit`` characters, for one-line messages."""
-    text = repr(value)
+    """``repr(value)`` cut to ``limit`` characters, for one-line messages.
+
+    Nested containers are shown only a few levels and items deep, so that a value
+    holding millions of references to one list (YAML aliases) or itself is shown
+    at once.
+    """
+    text = _REPR.repr(value)
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 

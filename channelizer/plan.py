@@ -8,10 +8,12 @@ edited by hand is refused with a message naming the field when it is wrong.
 from dataclasses import dataclass, field
 import hashlib
 import math
+import sys
 
 import numpy as np
 import yaml
 
+from .datatypes import _shown
 from .errors import ChannelizerError
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates, is_halfband
 
@@ -103,17 +105,26 @@ class Plan:
             mark = getattr(exc, "problem_mark", None)
             where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
             problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+            tag = problem.partition("could not determine a constructor for the tag ")[2]
+            if isinstance(exc, yaml.constructor.ConstructorError) and tag:
+                raise ChannelizerError(f"{source}: YAML tag {tag}{where} is not allowed; a plan holds plain YAML only") from None
             raise ChannelizerError(f"{source}: malformed YAML{where}: {problem}") from None
+        except RecursionError:
+            raise ChannelizerError(f"{source}: malformed YAML: nested too deeply to read") from None
+        except ValueError as exc:  # e.g. an integer of more digits than Python converts
+            raise ChannelizerError(f"{source}: a YAML value cannot be read ({str(exc).splitlines()[0]})") from None
+        if data is None:
+            raise ChannelizerError(f"{source}: the file is empty; expected a mapping of plan keys")
         return cls.from_dict(data, source=source)
 
     @classmethod
     def from_dict(cls, data, *, source="plan"):
         v = _Validator(source)
         if not isinstance(data, dict):
-            raise ChannelizerError(f"{source}: expected a mapping of plan keys, got {type(data).__name__}")
+            raise ChannelizerError(f"{source}: expected a mapping of plan keys, got {_kind(data)}")
         fmt = data.get("format")
         if fmt != PLAN_FORMAT:
-            raise ChannelizerError(f"{source}: format must be {PLAN_FORMAT!r}, got {fmt!r}")
+            raise ChannelizerError(f"{source}: format must be {PLAN_FORMAT!r}, got {_shown(fmt)}")
         input_rate = v.positive(data, "input_rate")
         output_rate = v.positive(data, "output_rate")
         bandwidth = v.positive(data, "bandwidth")
@@ -126,7 +137,7 @@ class Plan:
         }
         if "objective" in spec:
             if spec["objective"] not in ("cpu", "hardware"):
-                raise ChannelizerError(f"{source}: spec.objective must be cpu or hardware, got {spec['objective']!r}")
+                raise ChannelizerError(f"{source}: spec.objective must be cpu or hardware, got {_shown(spec['objective'])}")
             spec_out["objective"] = spec["objective"]
         bits = v.mapping(spec, "bits", "spec.bits")
         spec_out["bits"] = {k: v.integer(bits, k, f"spec.bits.{k}", lo=1, hi=64) for k in ("input", "output")}
@@ -155,6 +166,11 @@ class Plan:
             if key not in predicted:
                 raise ChannelizerError(f"{source}: predicted.{key} is missing")
             v.number(predicted, key, f"predicted.{key}")
+        for key, x in predicted.items():  # the rest are figures too; tables format them as numbers
+            if isinstance(x, bool) or not isinstance(x, (int, float)) or (isinstance(x, int) and not _finite(x)):
+                v.fail(f"predicted.{key}", f"expected a number, got {_kind(x)}")
+        if "stopband_rejection_db" in predicted and "stopband_edge" not in spec_out:
+            v.fail("predicted.stopband_rejection_db", "given, but spec.stopband_edge (what it refers to) is missing")
         return cls(input_rate, output_rate, bandwidth, spec_out, stages, dict(predicted))
 
     # -------------------------------------------------------------- helpers
@@ -181,6 +197,29 @@ def _plain(obj):
     return obj
 
 
+def _kind(x):
+    """A bad value for a message: containers by their kind (they may be huge or hold
+    themselves through YAML aliases), anything else shortened."""
+    if isinstance(x, dict):
+        return "a mapping"
+    if isinstance(x, list):
+        return "a list"
+    return _shown(x)
+
+
+def _finite(x):
+    """``math.isfinite`` that also takes integers too large for a float (YAML reads any digits)."""
+    return abs(x) <= sys.float_info.max
+
+
+def _reads_as_float(x):
+    """True for text such as ``1e6`` that YAML 1.1 leaves as a string but Python reads as a number."""
+    try:
+        return isinstance(x, str) and math.isfinite(float(x))
+    except ValueError:
+        return False
+
+
 class _Validator:
     def __init__(self, source):
         self.source = source
@@ -194,10 +233,10 @@ class _Validator:
             self.fail(where, "missing")
         x = d[key]
         if isinstance(x, bool) or not isinstance(x, (int, float)):
-            hint = " (YAML 1.1 reads 1e6 as text: write 1.0e+06)" if isinstance(x, str) else ""
-            self.fail(where, f"expected a number, got {x!r}{hint}")
-        if not math.isfinite(x):
-            self.fail(where, f"must be finite, got {x!r}")
+            hint = " (YAML 1.1 reads 1e6 as text: write 1.0e+06)" if _reads_as_float(x) else ""
+            self.fail(where, f"expected a number, got {_kind(x)}{hint}")
+        if not _finite(x):
+            self.fail(where, f"must be finite, got {_shown(x)}")
         return float(x)
 
     def positive(self, d, key, where=None):
@@ -212,7 +251,7 @@ class _Validator:
             self.fail(where, "missing")
         x = d[key]
         if isinstance(x, bool) or not isinstance(x, int):
-            self.fail(where, f"expected an integer, got {x!r}")
+            self.fail(where, f"expected an integer, got {_kind(x)}")
         if x < lo or (hi is not None and x > hi):
             self.fail(where, f"must be from {lo} to {hi}, got {x}" if hi else f"must be at least {lo}, got {x}")
         return x
@@ -231,8 +270,8 @@ class _Validator:
         if len(t) > 100_000:
             self.fail(f"{where}.taps", f"{len(t)} taps is more than the 100000 allowed")
         for i, x in enumerate(t):
-            if isinstance(x, bool) or not isinstance(x, (int, float)) or not math.isfinite(x):
-                self.fail(f"{where}.taps[{i}]", f"expected a finite number, got {x!r}")
+            if isinstance(x, bool) or not isinstance(x, (int, float)) or not _finite(x):
+                self.fail(f"{where}.taps[{i}]", f"expected a finite number, got {_kind(x)}")
         return tuple(float(x) for x in t)
 
     def coefficient_bits(self, d, where):
@@ -263,7 +302,7 @@ class _Validator:
             taps = self.taps(s, where)
             role = s.get("role", "halfband" if kind == "halfband" else "channel")
             if role not in ("compensator", "channel", "halfband"):
-                self.fail(f"{where}.role", f"must be compensator, channel or halfband, got {role!r}")
+                self.fail(f"{where}.role", f"must be compensator, channel or halfband, got {_shown(role)}")
             if kind == "halfband":
                 if dec != 2:
                     self.fail(f"{where}.decimation", f"a half-band decimates by 2, got {dec}")
@@ -280,4 +319,4 @@ class _Validator:
             taps = self.taps(s, where)
             b, fb = self.coefficient_bits(s, where)
             return ResamplerStage(up, dec, taps, b, fb)
-        self.fail(f"{where}.kind", f"must be one of cic, fir, halfband, resampler, got {kind!r}")
+        self.fail(f"{where}.kind", f"must be one of cic, fir, halfband, resampler, got {_shown(kind)}")

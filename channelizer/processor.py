@@ -129,7 +129,8 @@ def check_channel(capture, req):
     fs = capture.sample_rate
     if not math.isclose(fs, plan.input_rate, rel_tol=1e-9):
         raise ChannelizerError(
-            f"channel {req.name}: the capture runs at {fs:g} Hz but its plan expects {plan.input_rate:g} Hz"
+            f"channel {req.name}: the capture {capture.path} runs at {fs:g} Hz but its plan"
+            f"{' ' + str(req.plan_source) if req.plan_source else ''} expects {plan.input_rate:g} Hz"
         )
     half = plan.bandwidth / 2.0
     if abs(req.offset) + half > fs / 2.0:

@@ -135,14 +135,25 @@ def _grid(lo, hi, n):
     return np.linspace(lo, hi, n)
 
 
-def _worst(stages, intervals, fs, dc, points_per_band):
+def _worst(stages, intervals, fs, dc, points_per_band, refine=4, refine_points=2001):
+    """Smallest attenuation over ``intervals``: a coarse pass over every band, then a
+    dense pass over the ``refine`` worst bands of each image path."""
     worst_db, worst_f = np.inf, float("nan")
     by_image = {}
     for lo, hi, k in intervals:
-        by_image.setdefault(k, []).append(_grid(lo, hi, points_per_band))
-    for k, grids in by_image.items():
-        f = np.concatenate(grids)
+        by_image.setdefault(k, []).append((lo, hi))
+    for k, bands in by_image.items():
+        f = np.concatenate([_grid(lo, hi, points_per_band) for lo, hi in bands])
         att = -20.0 * np.log10(np.maximum(np.abs(composite_response(stages, f, fs=fs, image=k)), 1e-300) / dc)
+        per_band = att.reshape(len(bands), points_per_band).min(axis=1)
+        for b in np.argsort(per_band)[:refine]:
+            lo, hi = bands[b]
+            fine = _grid(lo, hi, refine_points)
+            a = -20.0 * np.log10(np.maximum(np.abs(composite_response(stages, fine, fs=fs, image=k)), 1e-300) / dc)
+            i = int(np.argmin(a))
+            if a[i] < att.min():
+                att = np.append(att, a[i])
+                f = np.append(f, fine[i])
         i = int(np.argmin(att))
         if att[i] < worst_db:
             worst_db, worst_f = float(att[i]), float(f[i])
