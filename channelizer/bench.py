@@ -52,6 +52,7 @@ __all__ = [
     "BENCH_SPEC",
     "BenchReport",
     "SoakReport",
+    "channel_offsets",
     "format_report",
     "format_soak_report",
     "reference_filter",
