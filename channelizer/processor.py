@@ -157,14 +157,10 @@ def _dbfs(power):
     return 10.0 * math.log10(power) if power > 0 else -math.inf
 
 
-def _build_runner(req, capture, bit_true):
-    if bit_true:
-        from .integer_chain import IntegerChain
+def _integer_chain(req, capture):
+    from .integer_chain import IntegerChain
 
-        return IntegerChain.from_plan(req.plan, offset=req.offset, fs=capture.sample_rate)
-    from .streaming import build_chain
-
-    return build_chain(req.plan.stages, offset=req.offset, fs=capture.sample_rate)
+    return IntegerChain.from_plan(req.plan, offset=req.offset, fs=capture.sample_rate)
 
 
 def extract_channels(
@@ -219,7 +215,13 @@ def extract_channels(
     _prepare_out_dir(out_dir)
     fs = capture.sample_rate
     center = capture.center_frequency
-    runners = [_build_runner(r, capture, bit_true) for r in requests]
+    if bit_true:
+        runners = [_integer_chain(r, capture) for r in requests]
+    else:
+        # channels sharing a first stage share its matrix product (one pass over the input)
+        from .streaming import SharedFrontBank
+
+        bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=capture.sample_rate)
     n_total = capture.num_samples
     n_blocks = max(1, -(-n_total // block_size))
     stride = max(1, -(-n_blocks * block_size // OVERVIEW_SAMPLES))
@@ -240,7 +242,7 @@ def extract_channels(
     scale_in = None
     with contextlib.ExitStack() as stack:
         writers = []
-        for r, name, runner in zip(requests, names, runners):
+        for r, name in zip(requests, names):
             meta_global = {
                 "core:description": f"channel {name} extracted by channelizer",
                 "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
@@ -279,7 +281,7 @@ def extract_channels(
             else:
                 if overview is not None and i % stride == 0:
                     overview.update(block)
-                outs = [runner.process(block) for runner in runners]
+                outs = bank.process(block)
             for k, y in enumerate(outs):
                 if y.size:
                     writers[k].write(y)

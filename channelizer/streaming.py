@@ -32,6 +32,7 @@ block 42-71 Msps, against 61.44 Msps for real time.
 
 from fractions import Fraction
 import math
+import os
 import numbers
 
 import numpy as np
@@ -49,6 +50,8 @@ __all__ = [
     "MixingFirDecimator",
     "RationalResampler",
     "build_chain",
+    "MixingFirBank",
+    "SharedFrontBank",
 ]
 
 _EMPTY = np.zeros(0, dtype=np.complex64)
@@ -160,7 +163,7 @@ class _Rotator:
 # calls by up to a factor of 300 in our measurements, so every product is cut into
 # pieces that stay single-threaded.  With the OpenBLAS 0.3.31 that numpy 2.4 ships,
 # complex products ran on one thread for m n k < 65536 and on two from 65536 on.
-_BLAS_SINGLE_THREAD_MNK = 65535
+_BLAS_SINGLE_THREAD_MNK = 65535 if os.environ.get("OPENBLAS_NUM_THREADS") != "1" else 1 << 22
 _DIRECT_BLOCK = 16384  # blocks up to this many samples are copied into one buffer
 
 
@@ -193,7 +196,11 @@ class _BlockFir:
 
     def __init__(self, taps, decimation):
         h = np.asarray(taps)
-        L = h.size
+        # several filters of one length (one per row of ``taps``) share the input rows:
+        # their matrices sit side by side, so one product serves every channel
+        self._multi = h.ndim == 2
+        hs = h if self._multi else h[None, :]
+        C, L = hs.shape
         D = decimation
         B, P, Q = _layout(L, D)
         i = np.arange(P)[:, None, None]
@@ -201,10 +208,11 @@ class _BlockFir:
         j = np.arange(B)[None, None, :]
         k = q * P + j * D + D - 1 - i
         valid = (k >= 0) & (k < L)
-        G = np.where(valid, h[np.clip(k, 0, L - 1)], 0)
-        self._G = np.ascontiguousarray(G.reshape(P, Q * B).astype(np.complex64))
+        G = np.where(valid[:, None], hs[:, np.clip(k, 0, L - 1)].transpose(1, 0, 2, 3), 0)  # (P, C, Q, B)
+        self._G = np.ascontiguousarray(G.reshape(P, C * Q * B).astype(np.complex64))
+        self._C = C
         self._L, self._D, self._B, self._P, self._Q = L, D, B, P, Q
-        self._chunk_rows = max(1, _BLAS_SINGLE_THREAD_MNK // (P * Q * B))
+        self._chunk_rows = max(1, _BLAS_SINGLE_THREAD_MNK // (P * Q * B * C))
         self._hist = np.zeros((Q - 1) * P + D - 1, dtype=np.complex64)
         self.n_in = 0
         self.n_out = 0
@@ -230,12 +238,13 @@ class _BlockFir:
         if n_new <= 0:
             self._hist = np.concatenate((hist, x))
             self.n_in = total
-            return _EMPTY
+            return np.zeros((self._C, 0), np.complex64) if self._multi else _EMPTY
         nro = -(-n_new // B)
         nrows = nro + Q - 1
         need = nrows * P  # samples from hist[0] that the rows cover
         have = hs + n
-        Z = np.empty((nrows, Q * B), dtype=np.complex64)
+        C = self._C
+        Z = np.empty((nrows, C * Q * B), dtype=np.complex64)
         if n <= max(_DIRECT_BLOCK, 4 * (hs + P + D)):
             # small block: one buffer of history, block and zero padding
             buf = np.empty(max(need, have), dtype=np.complex64)
@@ -259,17 +268,21 @@ class _BlockFir:
                 tail[: have - rt * P] = x[rt * P - hs :]
                 self._product(tail, Z[rt:])
             self._hist = x[n_new * D - hs :].copy()
-        if Q == 1:
-            y = Z.reshape(-1)[:n_new]
-        else:
+        self.n_in = total
+        self.n_out = m_end
+        if not self._multi:
+            if Q == 1:
+                return Z.reshape(-1)[:n_new]
             Z3 = Z.reshape(nrows, Q, B)
             y = np.add(Z3[Q - 1 : Q - 1 + nro, 0, :], Z3[Q - 2 : Q - 2 + nro, 1, :])
             for qq in range(2, Q):
                 y += Z3[Q - 1 - qq : Q - 1 - qq + nro, qq, :]
-            y = y.reshape(-1)[:n_new]
-        self.n_in = total
-        self.n_out = m_end
-        return y
+            return y.reshape(-1)[:n_new]
+        Z4 = Z.reshape(nrows, C, Q, B)
+        y = Z4[Q - 1 : Q - 1 + nro, :, 0, :].copy()
+        for qq in range(1, Q):
+            y += Z4[Q - 1 - qq : Q - 1 - qq + nro, :, qq, :]
+        return y.transpose(1, 0, 2).reshape(C, -1)[:, :n_new]
 
 
 # ----------------------------------------------------------------------------- public stages
@@ -445,6 +458,54 @@ class MixingFirDecimator:
         if y.size == 0:
             return y
         return self._rot.apply(y, np.empty_like(y))
+
+
+class MixingFirBank:
+    """Several :class:`MixingFirDecimator` of one filter, one product for all.
+
+    Channels whose chains start with the same low-pass ``h`` and decimation read
+    the same input rows; their modulated filters ``h[k] exp(+j w_c k)`` are laid
+    side by side in one matrix, so the input is traversed once for all of them.
+    Each channel's output equals its own :class:`MixingFirDecimator`.
+
+    Parameters
+    ----------
+    taps : array_like
+        Low-pass impulse response at the input rate.
+    decimation : int
+    offsets : sequence of float
+        Channel centres in Hz relative to the capture centre.
+    fs : float
+        Input sample rate in Hz.
+    start_index : int, optional
+        Absolute capture index of the first sample fed.
+    """
+
+    interpolation = 1
+
+    def __init__(self, taps, decimation, *, offsets, fs, start_index=0):
+        h = _check_taps(taps)
+        self.decimation = _check_factor(decimation, "decimation")
+        start = _check_index(start_index)
+        self.offsets = tuple(float(o) for o in offsets)
+        if not self.offsets:
+            raise ChannelizerError("offsets: a bank needs at least one channel")
+        self.taps = _read_only(h)
+        self.delay = (h.size - 1) / 2.0
+        k = np.arange(h.size, dtype=np.float64)
+        rows, self._rots = [], []
+        for off in self.offsets:
+            ratio = _exact(off, "offset") / _exact(fs, "fs", positive=True)
+            rows.append(h * np.exp(2j * np.pi * np.mod(k * float(ratio % 1), 1.0)))
+            self._rots.append(_Rotator(ratio, step=self.decimation, offset=start))
+        self._engine = _BlockFir(np.array(rows), self.decimation)
+
+    def process(self, block):
+        """Mix, filter and decimate the next block for every channel; a list of arrays."""
+        ys = self._engine.run(_as_block(block))
+        if ys.shape[1] == 0:
+            return [_EMPTY] * len(self.offsets)
+        return [rot.apply(y, np.empty_like(y)) for rot, y in zip(self._rots, ys)]
 
 
 class HalfbandDecimator:
@@ -701,6 +762,57 @@ class ChannelBank:
         x = _as_block(block).view()
         x.setflags(write=False)
         return [c.process(x) for c in self.chains]
+
+
+class SharedFrontBank:
+    """Channels fed from one input, their first stages shared where they can be.
+
+    Channels whose first stage is the same FIR or CIC (same taps and decimation)
+    run it as one :class:`MixingFirBank`; the rest of each chain runs on its own.
+    Each channel's output equals its own :func:`build_chain` chain.
+
+    Parameters
+    ----------
+    channels : sequence of (stages, offset)
+        Planned stages and the channel's offset in Hz from the capture centre.
+    fs : float
+        Capture sample rate in Hz.
+    """
+
+    def __init__(self, channels, *, fs, start_index=0):
+        channels = list(channels)
+        if not channels:
+            raise ChannelizerError("channels: a bank needs at least one channel")
+        groups = {}
+        self._solo = {}
+        for idx, (stages, offset) in enumerate(channels):
+            stages = tuple(stages)
+            first = stages[0]
+            if isinstance(first, (CicStage, FirStage)):
+                groups.setdefault(first, []).append((idx, stages, offset))
+            else:
+                self._solo[idx] = build_chain(stages, offset=offset, fs=fs, start_index=start_index)
+        self._groups = []
+        for first, members in groups.items():
+            taps = first.taps() if isinstance(first, CicStage) else np.asarray(first.taps, dtype=float)
+            front = MixingFirBank(taps, first.decimation, offsets=[m[2] for m in members], fs=fs, start_index=start_index)
+            rests = []
+            rate = fs / first.decimation
+            for _, stages, _ in members:
+                rests.append(build_chain(stages[1:], offset=0.0, fs=rate) if len(stages) > 1 else None)
+            self._groups.append(([m[0] for m in members], front, rests))
+        self.n_channels = len(channels)
+
+    def process(self, block):
+        """Feed one block; returns one complex64 array per channel, in order."""
+        x = _as_block(block)
+        out = [None] * self.n_channels
+        for idx, chain in self._solo.items():
+            out[idx] = chain.process(x)
+        for members, front, rests in self._groups:
+            for idx, y, rest in zip(members, front.process(x), rests):
+                out[idx] = rest.process(y) if rest is not None else y
+        return out
 
 
 def build_chain(stages, *, offset, fs, start_index=0):
