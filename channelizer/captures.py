@@ -14,9 +14,11 @@ block by block, as complex64 (float path) or as stored integers (bit-true path).
 Inputs are never opened for writing.
 """
 
+import contextlib
 import dataclasses
 import json
 import math
+import mmap
 import operator
 import os
 import struct
@@ -192,10 +194,29 @@ class Capture:
         _check_mode(nonfinite)
         return self._iter_blocks(self._components(), size, start, stop, nonfinite)
 
+    def _release(self, comps, upto):
+        """Let the kernel drop the mapped pages before sample ``upto``.
+
+        A read-only file mapping keeps every page it has touched resident (and
+        counted in the process's memory) until the mapping closes; streaming a
+        file larger than memory would otherwise look like it holds the whole
+        file.  The pages are re-read from the file if they are needed again.
+        """
+        mm = getattr(comps, "_mmap", None)
+        if mm is None or not hasattr(mm, "madvise"):
+            return
+        base = comps.offset - comps.offset // mmap.ALLOCATIONGRANULARITY * mmap.ALLOCATIONGRANULARITY
+        end = (base + upto * self.datatype.itemsize) // mmap.PAGESIZE * mmap.PAGESIZE
+        if end > 0:
+            with contextlib.suppress(OSError, ValueError):
+                mm.madvise(mmap.MADV_DONTNEED, 0, end)
+
     def _iter_blocks(self, comps, size, start, stop, nonfinite):
         check = not self.datatype.is_integer
         for first in range(start, stop, size):
-            block = to_complex64(comps[first : min(first + size, stop)], self.datatype)
+            last = min(first + size, stop)
+            block = to_complex64(comps[first:last], self.datatype)
+            self._release(comps, last)
             if check:
                 self.check_finite(block, first, nonfinite=nonfinite)
             yield block
@@ -235,7 +256,10 @@ class Capture:
 
         def iterate():
             for first in range(start, stop, size):
-                yield np.array(comps[first : min(first + size, stop)], dtype=native)
+                last = min(first + size, stop)
+                block = np.array(comps[first:last], dtype=native)
+                self._release(comps, last)
+                yield block
 
         return iterate()
 

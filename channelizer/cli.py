@@ -298,6 +298,44 @@ def _register_verify(sub):
     v.set_defaults(func=_cmd_verify)
 
 
+def _cmd_bench(args):
+    import json
+
+    from .atomic import write_text_atomic
+    from .bench import format_report, format_soak_report, run_benchmark, run_soak, time_planner
+
+    if args.json:
+        _check_output_path(args.json)
+    if args.soak:
+        report = run_soak(gigabytes=args.soak, channels=4, progress=not args.quiet)
+        print(format_soak_report(report))
+        doc = report.to_dict()
+    else:
+        planner = time_planner()
+        print("planner (design caches cleared, best of 3):")
+        for row in planner["specs"]:
+            print(f"  {row['seconds']:7.3f} s  {row['layout']:<28} {row['spec']}")
+        print(f"  worst {planner['worst_s']:.3f} s (target < {planner['target_s']:g} s): {'met' if planner['met'] else 'MISSED'}\n")
+        report = run_benchmark(seconds=args.seconds, channels=args.channels, progress=not args.quiet)
+        print(format_report(report))
+        doc = report.to_dict()
+        doc["planner"] = planner
+    if args.json:
+        write_text_atomic(args.json, json.dumps(doc, indent=2) + "\n")
+        print(f"figures written to {args.json}")
+    return 0
+
+
+def _register_bench(sub):
+    b = sub.add_parser("bench", help="speed and memory figures as ratios against a reference run", description="Measure the planner, and extraction speed and memory against a scipy.signal.resample_poly reference in the same process; --soak runs the large-file memory check.")
+    b.add_argument("--seconds", type=_positive_float, default=2.0, help="length of the synthetic 61.44 Msps capture (default 2)")
+    b.add_argument("--channels", type=int, default=8, help="channels of the many-channel run (default 8)")
+    b.add_argument("--soak", type=_positive_float, metavar="GB", help="instead: extract 4 channels from a capture of GB gigabytes and report peak memory")
+    b.add_argument("--json", metavar="FILE", help="write the figures as JSON")
+    b.add_argument("--quiet", action="store_true", help="no progress lines")
+    b.set_defaults(func=_cmd_bench)
+
+
 def _cmd_export(args):
     from .export import export_plan
 
@@ -359,7 +397,7 @@ def build_parser():
 
 
 #: Registration functions of further commands, each adding one subparser.
-_EXTRA_COMMANDS = [_register_extract, _register_survey, _register_verify, _register_export, _register_demo]
+_EXTRA_COMMANDS = [_register_extract, _register_survey, _register_verify, _register_export, _register_bench, _register_demo]
 
 
 def main(argv=None):

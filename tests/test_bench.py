@@ -79,7 +79,8 @@ def test_report_has_every_figure(report):
         assert m["peak_heap_mb"] > 0 and m["seconds"] > 0
         if sys.platform.startswith("linux"):  # read from /proc/self/smaps
             # the capture's memory map is resident, at most the whole file (4 bytes a sample)
-            assert 0 < m["mapped_file_mb"] <= 4 * N / 1e6 + 0.01
+            # the reader releases pages behind it, so little or nothing of the file stays mapped
+                assert 0 <= m["mapped_file_mb"] <= 4 * N / 1e6 + 0.01
     for key in ("speedup_vs_reference", "many_over_one_time", "one_channel_realtime"):
         t = report.targets[key]
         assert set(t) == {"value", "limit", "sense", "met"}
