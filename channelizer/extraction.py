@@ -9,6 +9,7 @@ import os
 from .channels import resolve_offset
 from .errors import ChannelizerError
 from .plan import MAX_PLAN_BYTES, Plan
+from .atomic import FileSet
 from .processor import ChannelRequest, extract_channels, plan_identity, write_summary
 
 __all__ = ["load_plan_file", "run_extraction"]
@@ -60,6 +61,19 @@ def run_extraction(
         plan, ident = plans[path]
         requests.append(ChannelRequest(e.name, resolve_offset(e, capture.center_frequency), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
+    files = FileSet()  # the recordings and the summary appear together, or not at all
+    try:
+        result = _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)
+        files.commit()
+    except BaseException:
+        files.abort()
+        raise
+    if plots:
+        _plot(result, requests, capture, out_dir)
+    return result
+
+
+def _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw):
     result = extract_channels(
         capture,
         requests,
@@ -69,6 +83,7 @@ def run_extraction(
         nonfinite=nonfinite,
         progress=progress,
         spectra=plots or audit,
+        fileset=files,
         **kw,
     )
     if audit and result.overview is not None:
@@ -76,32 +91,33 @@ def run_extraction(
 
         for req, ch in zip(requests, result.channels):
             ch.alias_audit = audit_channel(result.overview, req, ch)
-    write_summary(result, out_dir)
-    if plots:
-        from .plots import plot_channel, plot_overview
-
-        if result.overview is not None:
-            center = capture.center_frequency or 0.0
-            plot_overview(
-                result.overview,
-                [(r.name, center + r.offset, r.plan.bandwidth) for r in requests],
-                os.path.join(out_dir, "overview.png"),
-            )
-        for req, ch in zip(requests, result.channels):
-            if ch.spectrum is None:
-                continue
-            floor = None
-            if result.overview is not None:
-                floor = _alias_floor(result.overview, req)
-            plot_channel(
-                ch.spectrum,
-                name=ch.name,
-                bandwidth=req.plan.bandwidth,
-                alias_floor_dbfs_per_hz=floor,
-                audit=ch.alias_audit,
-                path=os.path.join(out_dir, f"{ch.name}.png"),
-            )
+    write_summary(result, out_dir, fileset=files)
     return result
+
+
+def _plot(result, requests, capture, out_dir):
+    """``overview.png`` and one ``NAME.png`` per channel (each written atomically)."""
+    from .plots import plot_channel, plot_overview
+
+    if result.overview is not None:
+        center = capture.center_frequency or 0.0
+        plot_overview(
+            result.overview,
+            [(r.name, center + r.offset, r.plan.bandwidth) for r in requests],
+            os.path.join(out_dir, "overview.png"),
+        )
+    for req, ch in zip(requests, result.channels):
+        if ch.spectrum is None:
+            continue
+        floor = None if result.overview is None else _alias_floor(result.overview, req)
+        plot_channel(
+            ch.spectrum,
+            name=ch.name,
+            bandwidth=req.plan.bandwidth,
+            alias_floor_dbfs_per_hz=floor,
+            audit=ch.alias_audit,
+            path=os.path.join(out_dir, f"{ch.name}.png"),
+        )
 
 
 def _alias_floor(psd, req):

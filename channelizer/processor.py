@@ -18,7 +18,7 @@ import time
 
 import numpy as np
 
-from .atomic import write_text_atomic
+from .atomic import FileSet, write_text_atomic
 from .errors import ChannelizerError
 from .names import safe_output_name
 from .spectrum import WelchAccumulator
@@ -174,7 +174,7 @@ def extract_channels(
     nonfinite="error",
     progress=False,
     spectra=True,
-    workers=1,
+    fileset=None,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -195,6 +195,10 @@ def extract_channels(
         Show a progress bar on stderr (when it is a terminal).
     spectra : bool
         Accumulate the input and output spectra for the plots.
+    fileset : channelizer.atomic.FileSet, optional
+        Leave the recordings uncommitted in this set (the caller adds the summary
+        and commits, so that all outputs of a run appear together); by default
+        they are committed here once every channel is complete.
 
     Returns
     -------
@@ -239,6 +243,29 @@ def extract_channels(
     count = [0] * len(requests)
     bar = ProgressBar(n_total, enabled=None if progress else False, label="extract")
     t0 = time.perf_counter()
+    own_set = fileset is None
+    files = FileSet() if own_set else fileset
+    try:
+        writers = _run_writers(
+            capture, requests, names, files, out_dir, output_format, bit_true, block_size, nonfinite,
+            runners if bit_true else None, None if bit_true else bank, overview, stride, out_spectra, power, count, bar,
+        )
+        if own_set:
+            files.commit()  # every recording appears together, or none does
+    except BaseException:
+        if own_set:
+            files.abort()
+        raise
+    seconds = time.perf_counter() - t0
+    return _results(capture, requests, names, writers, power, count, out_spectra, overview, n_total, seconds)
+
+
+def _run_writers(capture, requests, names, files, out_dir, output_format, bit_true, block_size, nonfinite,
+                 runners, bank, overview, stride, out_spectra, power, count, bar):
+    """Stream the capture through every chain into one writer per channel."""
+    from .sigmf_writer import SigmfWriter
+
+    center = capture.center_frequency
     scale_in = None
     with contextlib.ExitStack() as stack:
         writers = []
@@ -259,6 +286,7 @@ def extract_channels(
                 fs=r.plan.output_rate,
                 center_frequency=None if center is None else center + r.offset,
                 global_extra=meta_global,
+                fileset=files,
             )
             writers.append(stack.enter_context(w))
         done = 0
@@ -292,7 +320,12 @@ def extract_channels(
             done += block.shape[0]
             bar.update(done)
         bar.close()
-    seconds = time.perf_counter() - t0
+    return writers
+
+
+def _results(capture, requests, names, writers, power, count, out_spectra, overview, n_total, seconds):
+    fs = capture.sample_rate
+    center = capture.center_frequency
     results = []
     for r, name, w, k in zip(requests, names, writers, range(len(requests))):
         results.append(
@@ -314,8 +347,8 @@ def extract_channels(
     return ExtractResult(capture=capture, channels=results, input_samples=n_total, seconds=seconds, overview=ov)
 
 
-def write_summary(result, out_dir, *, extra=None):
-    """Write ``summary.json`` (via a temporary name) and return its path."""
+def write_summary(result, out_dir, *, extra=None, fileset=None):
+    """Write ``summary.json`` (via a temporary name, or into ``fileset``) and return its path."""
     cap = result.capture
     doc = {
         "capture": os.path.basename(cap.path),
@@ -343,6 +376,10 @@ def write_summary(result, out_dir, *, extra=None):
     if extra:
         doc.update(extra)
     path = os.path.join(out_dir, "summary.json")
-    write_text_atomic(path, json.dumps(doc, indent=2) + "\n")
+    text = json.dumps(doc, indent=2) + "\n"
+    if fileset is not None:
+        fileset.write_text(path, text)
+    else:
+        write_text_atomic(path, text)
     result.summary_path = path
     return path

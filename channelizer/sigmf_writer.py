@@ -117,6 +117,10 @@ class SigmfWriter:
         More fields for the single capture segment (e.g. ``core:datetime``).
     annotations : list of dict, optional
         Annotation segments, each with ``core:sample_start``; written sorted by it.
+    fileset : channelizer.atomic.FileSet, optional
+        When given, both files are left under temporary names at the end of the
+        ``with`` block and appear only when the caller commits the set (several
+        recordings that become visible together).
 
     Attributes
     ----------
@@ -148,6 +152,7 @@ class SigmfWriter:
         global_extra=None,
         capture_extra=None,
         annotations=None,
+        fileset=None,
     ):
         base = os.fspath(base_path)
         for ext in (".sigmf-meta", ".sigmf-data"):
@@ -193,6 +198,7 @@ class SigmfWriter:
         self._global = glob
         self._capture = capture
         self._annotations = []
+        self._fileset = fileset
         for i, item in enumerate(annotations or ()):
             self.add_annotation(item, _where=f"{self.meta_path}: annotations[{i}]")
         self._check_namespaces()
@@ -227,7 +233,8 @@ class SigmfWriter:
             raise RuntimeError("a SigmfWriter is entered once")
         stack = contextlib.ExitStack()
         try:
-            self._fh = stack.enter_context(atomic_output(self.data_path, "wb"))
+            opener = self._fileset.output if self._fileset is not None else atomic_output
+            self._fh = stack.enter_context(opener(self.data_path, "wb"))
         except OSError as exc:
             raise ChannelizerError(f"{self.data_path}: cannot write: {exc.strerror}") from None
         self._stack = stack
@@ -266,8 +273,11 @@ class SigmfWriter:
             stack.__exit__(type(error), error, error.__traceback__)
             raise
         try:
-            stack.close()  # data: flush, fsync, rename into place
-            write_text_atomic(self.meta_path, text)  # metadata last
+            stack.close()  # data: flush, fsync, rename into place (or leave to the file set)
+            if self._fileset is not None:
+                self._fileset.write_text(self.meta_path, text)  # metadata after the data
+            else:
+                write_text_atomic(self.meta_path, text)  # metadata last
         except OSError as err:
             raise ChannelizerError(f"{self.meta_path.with_suffix('')}: cannot finish writing: {err.strerror}") from None
         return False
