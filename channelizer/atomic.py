@@ -36,18 +36,10 @@ def atomic_output(path, mode="wb"):
 
     On any exception the temporary file is removed and ``path`` is untouched.
     """
-    path = os.fspath(path)
-    fd, tmp = _temp_beside(path)
-    try:
-        with os.fdopen(fd, mode) as fh:
-            yield fh
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
+    files = FileSet()
+    with files.output(path, mode) as fh:
+        yield fh
+    files.commit()
 
 
 def write_text_atomic(path, text):
@@ -103,14 +95,21 @@ class FileSet:
             for tmp, final in self._pending:
                 backup = None
                 if os.path.lexists(final):
+                    # keep the older file under a second name; a hard link leaves ``final``
+                    # in place, so a lone file is replaced in one atomic rename
                     backup = tempfile.mktemp(prefix="." + os.path.basename(final) + ".", suffix=".old", dir=os.path.dirname(os.path.abspath(final)))
-                    os.replace(final, backup)
+                    try:
+                        os.link(final, backup)
+                    except OSError:
+                        os.replace(final, backup)
                 done.append((final, backup))
                 os.replace(tmp, final)
         except BaseException as exc:
             for done_final, backup in reversed(done):
                 with contextlib.suppress(OSError):
-                    if backup is not None:
+                    if backup is not None and os.path.lexists(done_final) and os.path.samefile(backup, done_final):
+                        os.unlink(backup)  # never replaced (renaming a link onto itself does nothing)
+                    elif backup is not None:
                         os.replace(backup, done_final)
                     elif os.path.lexists(done_final):
                         os.unlink(done_final)
