@@ -336,3 +336,33 @@ def test_bad_arguments_are_refused(hardware_plan, tmp_path):
     with pytest.raises(ChannelizerError, match="Plan"):
         export_plan({"stages": []}, tmp_path / "bad")
     assert not (tmp_path / "bad").exists()
+
+
+def test_hex_files_load_with_readmemh_in_a_verilog_simulator(hardware_plan, tmp_path):
+    """Icarus Verilog's $readmemh (IEEE Std 1364) reads our memory files into signed
+    registers of the coefficient width and prints the same integers."""
+    import shutil
+    import subprocess
+
+    if shutil.which("iverilog") is None or shutil.which("vvp") is None:
+        pytest.skip("Icarus Verilog not installed (.ci/run installs it)")
+    out = tmp_path / "hw"
+    export_plan(hardware_plan, out, vectors=0)
+    for i, st in _fir_stages(hardware_plan):
+        base = f"stage{i}_{st.role}"
+        bits, n = st.coefficient_bits, len(st.taps)
+        src = tmp_path / f"{base}.v"
+        src.write_text(
+            "module t;\n"
+            f"  reg signed [{bits - 1}:0] mem [0:{n - 1}];\n"
+            "  integer k;\n"
+            f'  initial begin $readmemh("{out / (base + ".hex")}", mem);\n'
+            f'    for (k = 0; k < {n}; k = k + 1) $display("%0d", mem[k]);\n'
+            "    $finish; end\nendmodule\n"
+        )
+        sim = tmp_path / f"{base}.vvp"
+        subprocess.run(["iverilog", "-o", str(sim), str(src)], check=True, capture_output=True)
+        run = subprocess.run(["vvp", "-n", str(sim)], check=True, capture_output=True, text=True)
+        got = [int(v) for v in run.stdout.split() if re.fullmatch(r"-?\d+", v)]
+        expected = [int(v) for v in np.rint(np.asarray(st.taps) * 2.0**st.coefficient_frac_bits)]
+        assert got == expected
