@@ -24,7 +24,6 @@ import numpy as np
 
 from .cost import chain_cost
 from .design import (
-    alias_bands,
     choose_cic_order,
     design_compensator,
     design_decimator,

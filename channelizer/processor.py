@@ -204,8 +204,6 @@ def extract_channels(
     -------
     ExtractResult
     """
-    from .sigmf_writer import SigmfWriter
-
     if not requests:
         raise ChannelizerError("no channel to extract: give --channel NAME=FREQ or --channels FILE")
     names = [safe_output_name(r.name) for r in requests]
@@ -217,134 +215,138 @@ def extract_channels(
     if bit_true and not capture.datatype.is_integer:
         raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
     _prepare_out_dir(out_dir)
-    fs = capture.sample_rate
-    center = capture.center_frequency
-    if bit_true:
-        runners = [_integer_chain(r, capture) for r in requests]
-    else:
-        # channels sharing a first stage share its matrix product (one pass over the input)
-        from .streaming import SharedFrontBank
-
-        bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=capture.sample_rate)
-    n_total = capture.num_samples
-    n_blocks = max(1, -(-n_total // block_size))
-    stride = max(1, -(-n_blocks * block_size // OVERVIEW_SAMPLES))
-    overview = WelchAccumulator(fs=fs, nperseg=4096, center_frequency=center or 0.0) if spectra else None
-    out_spectra = []
-    for r in requests:
-        n_out = int(n_total * r.plan.output_rate / fs)
-        nper = 1 << max(4, min(12, int(math.log2(max(n_out // 8, 16)))))
-        out_spectra.append(
-            WelchAccumulator(fs=r.plan.output_rate, nperseg=nper, center_frequency=(center or 0.0) + r.offset)
-            if spectra and n_out >= nper
-            else None
-        )
-    power = [0.0] * len(requests)
-    count = [0] * len(requests)
-    bar = ProgressBar(n_total, enabled=None if progress else False, label="extract")
-    t0 = time.perf_counter()
+    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra)
     own_set = fileset is None
     files = FileSet() if own_set else fileset
+    t0 = time.perf_counter()
     try:
-        writers = _run_writers(
-            capture, requests, names, files, out_dir, output_format, bit_true, block_size, nonfinite,
-            runners if bit_true else None, None if bit_true else bank, overview, stride, out_spectra, power, count, bar,
-        )
+        one.run(out_dir, files, output_format=output_format, nonfinite=nonfinite, progress=progress)
         if own_set:
             files.commit()  # every recording appears together, or none does
     except BaseException:
         if own_set:
             files.abort()
         raise
-    seconds = time.perf_counter() - t0
-    return _results(capture, requests, names, writers, power, count, out_spectra, overview, n_total, seconds)
+    return one.result(time.perf_counter() - t0)
 
 
-def _run_writers(capture, requests, names, files, out_dir, output_format, bit_true, block_size, nonfinite,
-                 runners, bank, overview, stride, out_spectra, power, count, bar):
-    """Stream the capture through every chain into one writer per channel."""
-    from .sigmf_writer import SigmfWriter
+class _Pass:
+    """One read of a capture through every channel's chain, with its accumulators."""
 
-    center = capture.center_frequency
-    scale_in = None
-    with contextlib.ExitStack() as stack:
-        writers = []
-        for r, name in zip(requests, names):
-            meta_global = {
-                "core:description": f"channel {name} extracted by channelizer",
-                "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
-                "channelizer:channel": name,
-                "channelizer:plan_sha256": r.plan_id,
-                "channelizer:plan_source": os.path.basename(r.plan_source) if r.plan_source else "",
-                "channelizer:source_capture": os.path.basename(capture.path),
-                "channelizer:offset_hz": float(r.offset),
-                "channelizer:bit_true": bool(bit_true),
-            }
-            w = SigmfWriter(
-                os.path.join(out_dir, name),
-                datatype=output_format,
-                fs=r.plan.output_rate,
-                center_frequency=None if center is None else center + r.offset,
-                global_extra=meta_global,
-                fileset=files,
-            )
-            writers.append(stack.enter_context(w))
-        done = 0
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra):
+        self.capture, self.requests, self.names = capture, requests, names
+        self.bit_true, self.block_size = bit_true, block_size
+        fs = capture.sample_rate
+        centre = capture.center_frequency or 0.0
         if bit_true:
-            blocks = capture.raw_blocks(block_size)
-            scale_in = 2.0 ** (capture.datatype.bits - 1)
+            self.runners = [_integer_chain(r, capture) for r in requests]
         else:
-            blocks = capture.blocks(block_size, nonfinite=nonfinite)
-        for i, block in enumerate(blocks):
-            if bit_true:
-                raw = block.astype(np.int64)
-                if capture.datatype.kind == "u":
-                    raw = raw - int(scale_in)
-                if overview is not None and i % stride == 0:
-                    overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
-                outs = []
-                for runner in runners:
-                    y = runner.process(raw)
-                    outs.append((y[:, 0] + 1j * y[:, 1]).astype(np.complex64) * np.float32(runner.output_scale))
-            else:
-                if overview is not None and i % stride == 0:
-                    overview.update(block)
-                outs = bank.process(block)
-            for k, y in enumerate(outs):
-                if y.size:
-                    writers[k].write(y)
-                    power[k] += float(np.vdot(y, y).real)
-                    count[k] += y.size
-                    if out_spectra[k] is not None:
-                        out_spectra[k].update(y)
-            done += block.shape[0]
-            bar.update(done)
-        bar.close()
-    return writers
+            # channels sharing a first stage share its matrix product
+            from .streaming import SharedFrontBank
 
-
-def _results(capture, requests, names, writers, power, count, out_spectra, overview, n_total, seconds):
-    fs = capture.sample_rate
-    center = capture.center_frequency
-    results = []
-    for r, name, w, k in zip(requests, names, writers, range(len(requests))):
-        results.append(
-            ChannelResult(
-                name=name,
-                offset=float(r.offset),
-                center_frequency=None if center is None else float(center + r.offset),
-                output_rate=float(r.plan.output_rate),
-                samples=int(count[k]),
-                mean_power_dbfs=_dbfs(power[k] / count[k]) if count[k] else -math.inf,
-                group_delay_output_samples=chain_delay_output_samples(r.plan.stages, fs=fs),
-                plan_id=r.plan_id,
-                files=[os.path.basename(w.data_path), os.path.basename(w.meta_path)],
-                clipped=int(w.clipped),
-                spectrum=out_spectra[k].result() if out_spectra[k] is not None and out_spectra[k].segments else None,
+            self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs)
+        n_total = capture.num_samples
+        n_blocks = max(1, -(-n_total // block_size))
+        self.stride = max(1, -(-n_blocks * block_size // OVERVIEW_SAMPLES))
+        self.overview = WelchAccumulator(fs=fs, nperseg=4096, center_frequency=centre) if spectra else None
+        self.out_spectra = []
+        for r in requests:
+            n_out = int(n_total * r.plan.output_rate / fs)
+            nper = 1 << max(4, min(12, int(math.log2(max(n_out // 8, 16)))))
+            ok = spectra and n_out >= nper
+            self.out_spectra.append(
+                WelchAccumulator(fs=r.plan.output_rate, nperseg=nper, center_frequency=centre + r.offset) if ok else None
             )
-        )
-    ov = overview.result() if overview is not None and overview.segments else None
-    return ExtractResult(capture=capture, channels=results, input_samples=n_total, seconds=seconds, overview=ov)
+        self.power = [0.0] * len(requests)
+        self.count = [0] * len(requests)
+        self.writers = []
+
+    def _outputs(self, i, block):
+        """Every channel's output for one input block (complex64, full-scale units)."""
+        if not self.bit_true:
+            if self.overview is not None and i % self.stride == 0:
+                self.overview.update(block)
+            return self.bank.process(block)
+        scale_in = 2.0 ** (self.capture.datatype.bits - 1)
+        raw = block.astype(np.int64)
+        if self.capture.datatype.kind == "u":
+            raw = raw - int(scale_in)
+        if self.overview is not None and i % self.stride == 0:
+            self.overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
+        outs = []
+        for runner in self.runners:
+            y = runner.process(raw)
+            outs.append((y[:, 0] + 1j * y[:, 1]).astype(np.complex64) * np.float32(runner.output_scale))
+        return outs
+
+    def run(self, out_dir, files, *, output_format, nonfinite, progress):
+        """Stream the capture into one writer per channel (left uncommitted in ``files``)."""
+        from .sigmf_writer import SigmfWriter
+
+        cap = self.capture
+        centre = cap.center_frequency
+        bar = ProgressBar(cap.num_samples, enabled=None if progress else False, label="extract")
+        with contextlib.ExitStack() as stack:
+            for r, name in zip(self.requests, self.names):
+                meta_global = {
+                    "core:description": f"channel {name} extracted by channelizer",
+                    "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
+                    "channelizer:channel": name,
+                    "channelizer:plan_sha256": r.plan_id,
+                    "channelizer:plan_source": os.path.basename(r.plan_source) if r.plan_source else "",
+                    "channelizer:source_capture": os.path.basename(cap.path),
+                    "channelizer:offset_hz": float(r.offset),
+                    "channelizer:bit_true": bool(self.bit_true),
+                }
+                w = SigmfWriter(
+                    os.path.join(out_dir, name),
+                    datatype=output_format,
+                    fs=r.plan.output_rate,
+                    center_frequency=None if centre is None else centre + r.offset,
+                    global_extra=meta_global,
+                    fileset=files,
+                )
+                self.writers.append(stack.enter_context(w))
+            if self.bit_true:
+                blocks = cap.raw_blocks(self.block_size)
+            else:
+                blocks = cap.blocks(self.block_size, nonfinite=nonfinite)
+            done = 0
+            for i, block in enumerate(blocks):
+                for k, y in enumerate(self._outputs(i, block)):
+                    if y.size:
+                        self.writers[k].write(y)
+                        self.power[k] += float(np.vdot(y, y).real)
+                        self.count[k] += y.size
+                        if self.out_spectra[k] is not None:
+                            self.out_spectra[k].update(y)
+                done += block.shape[0]
+                bar.update(done)
+            bar.close()
+
+    def result(self, seconds):
+        cap = self.capture
+        fs, centre = cap.sample_rate, cap.center_frequency
+        results = []
+        for k, (r, name, w) in enumerate(zip(self.requests, self.names, self.writers)):
+            spec = self.out_spectra[k]
+            results.append(
+                ChannelResult(
+                    name=name,
+                    offset=float(r.offset),
+                    center_frequency=None if centre is None else float(centre + r.offset),
+                    output_rate=float(r.plan.output_rate),
+                    samples=int(self.count[k]),
+                    mean_power_dbfs=_dbfs(self.power[k] / self.count[k]) if self.count[k] else -math.inf,
+                    group_delay_output_samples=chain_delay_output_samples(r.plan.stages, fs=fs),
+                    plan_id=r.plan_id,
+                    files=[os.path.basename(w.data_path), os.path.basename(w.meta_path)],
+                    clipped=int(w.clipped),
+                    spectrum=spec.result() if spec is not None and spec.segments else None,
+                )
+            )
+        ov = self.overview.result() if self.overview is not None and self.overview.segments else None
+        return ExtractResult(capture=cap, channels=results, input_samples=cap.num_samples, seconds=seconds, overview=ov)
 
 
 def write_summary(result, out_dir, *, extra=None, fileset=None):

@@ -2,7 +2,6 @@
 
 import base64
 import html
-import math
 import os
 
 from .atomic import write_text_atomic

@@ -5,9 +5,8 @@ and its complex frequency response at any frequency in Hz.  Stages hold no
 streaming state; the processor builds its own runners from them.
 """
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from fractions import Fraction
-import math
 import typing
 
 import numpy as np
