@@ -6,7 +6,6 @@ exp(-2j pi f n / fs); SigMF files are checked with the sigmf reference library.
 
 import json
 import math
-import os
 
 import numpy as np
 import pytest
@@ -17,7 +16,6 @@ from channelizer.channels import ChannelEntry, parse_channel_list, parse_channel
 from channelizer.cli import main
 from channelizer.errors import ChannelizerError
 from channelizer.extraction import run_extraction
-from channelizer.plan import Plan
 from channelizer.planner import plan_chain
 from channelizer.spec import ChainSpec
 from channelizer.sigmf_writer import write_sigmf
@@ -116,7 +114,7 @@ def test_extract_matches_upfirdn_stage_by_stage(which, request, capture, tmp_pat
 def test_tone_comes_out_at_its_offset_and_level(plan_file, capture, tmp_path):
     path, plan = plan_file
     cap_path, _ = capture
-    res = run_extraction(open_capture(cap_path), [ChannelEntry("t", 150e3 + 1e3, True)], str(tmp_path), plan_path=path, plots=False)
+    run_extraction(open_capture(cap_path), [ChannelEntry("t", 150e3 + 1e3, True)], str(tmp_path), plan_path=path, plots=False)
     _, y = _read(str(tmp_path / "t"))
     y = y[100:]
     n = np.arange(len(y)) + 100

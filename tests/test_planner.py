@@ -98,7 +98,7 @@ def recompute_figures(doc, per_band=64):
     frequency outside the passband that the chain folds onto [-bw/2, bw/2].
     """
     h, rate, down, up = equivalent_filter(doc)
-    fs_in, fs_out, bw = doc["input_rate"], doc["output_rate"], doc["bandwidth"]
+    fs_out, bw = doc["output_rate"], doc["bandwidth"]
     fp = bw / 2
     # grid step: fs_out / K with K chosen so each passband-wide band gets ~per_band points
     k = max(64, int(math.ceil(per_band * fs_out / bw)))
