@@ -14,18 +14,10 @@ import math
 
 import numpy as np
 
-from .response import alias_intervals, composite_response, fold
+from .response import alias_intervals, composite_response, fold, image_step
 from .spectrum import detect_signals, estimate_noise_floor
-from .stages import ResamplerStage, chain_rates
 
 __all__ = ["audit_channel"]
-
-
-def _image_step(stages, fs):
-    for st, rate in zip(stages, chain_rates(stages, fs=fs)):
-        if isinstance(st, ResamplerStage):
-            return rate
-    return 0.0
 
 
 def audit_channel(psd, req, result=None, *, threshold_db=10.0):
@@ -54,7 +46,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
     chan_centre = psd.center_frequency + req.offset
     noise_out = 10 * math.log10(estimate_noise_floor(psd))
     intervals = alias_intervals(plan.stages, fs=fs, bandwidth=plan.bandwidth)
-    step = _image_step(plan.stages, fs)
+    step = image_step(plan.stages, fs=fs)
     bin_hz = psd.bin_hz
     out = []
     for sig in detect_signals(psd, threshold_db=threshold_db):

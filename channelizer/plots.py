@@ -4,7 +4,7 @@ import math
 
 import numpy as np
 
-from .response import alias_intervals, composite_response, fold
+from .response import alias_intervals, composite_response, fold, image_step
 from .stages import chain_rates
 from .table import stage_rows
 
@@ -83,7 +83,7 @@ def plot_plan(plan, path, *, title=None):
 
     fs_out = plan.output_rate
     xs, ys = [], []
-    step = _image_step(plan)
+    step = image_step(plan.stages, fs=fs)
     for k in sorted({k for _, _, k in intervals}):
         bands = [(lo, hi) for lo, hi, kk in intervals if kk == k]
         x = np.concatenate([np.append(np.linspace(lo, hi, 48), np.nan) for lo, hi in bands])
@@ -116,16 +116,6 @@ def plot_plan(plan, path, *, title=None):
     bx.legend(loc="lower left", fontsize=8)
     bx.set_title(f"(b) folded view: worst alias {worst:.1f} dB below the channel")
     save_figure(fig, path)
-
-
-def _image_step(plan):
-    from .stages import ResamplerStage
-
-    rates = chain_rates(plan.stages, fs=plan.input_rate)
-    for st, rate in zip(plan.stages, rates):
-        if isinstance(st, ResamplerStage):
-            return rate
-    return 0.0
 
 
 def plot_overview(psd, channels, path, *, title=None):

@@ -15,7 +15,7 @@ import numpy as np
 
 from .stages import ResamplerStage, chain_rates
 
-__all__ = ["composite_response", "alias_intervals", "landing_intervals", "Prediction", "predict", "fold"]
+__all__ = ["composite_response", "alias_intervals", "landing_intervals", "resampler_of", "image_step", "Prediction", "predict", "fold"]
 
 
 def fold(f, fs):
@@ -52,7 +52,8 @@ def composite_response(stages, f, *, fs, image=0):
     return h
 
 
-def _resampler_input_rate(stages, fs):
+def resampler_of(stages, *, fs):
+    """The chain's rational stage and its input rate; ``(None, output rate)`` without one."""
     rates = chain_rates(stages, fs=fs)
     for st, rate in zip(stages, rates):
         if isinstance(st, ResamplerStage):
@@ -60,10 +61,16 @@ def _resampler_input_rate(stages, fs):
     return None, rates[-1]
 
 
+def image_step(stages, *, fs):
+    """Frequency step between image paths: the rational stage's input rate (0 without one)."""
+    res, rate = resampler_of(stages, fs=fs)
+    return rate if res is not None else 0.0
+
+
 def _intervals(stages, fs, bands, *, skip_direct):
     """Input intervals whose image paths land in any of ``bands`` (output-band offsets)."""
     fs_out = chain_rates(stages, fs=fs)[-1]
-    res, fs_r = _resampler_input_rate(stages, fs)
+    res, fs_r = resampler_of(stages, fs=fs)
     n_images = res.interpolation if res is not None else 1
     reach = max(abs(e) for band in bands for e in band)
     out = []

@@ -67,7 +67,7 @@ import scipy.optimize
 
 from .errors import ChannelizerError
 from .plan import Plan
-from .response import alias_intervals, composite_response, fold, predict
+from .response import alias_intervals, composite_response, fold, predict, resampler_of
 from .stages import ResamplerStage, chain_rates
 
 __all__ = ["ToneMeasurement", "Verification", "verify_plan", "plot_verification"]
@@ -257,10 +257,8 @@ def _finite(obj):
 # ----------------------------------------------------------------------------- geometry
 def _resampler(stages, fs):
     """(interpolation, input rate of the rational stage); (1, output rate) when there is none."""
-    for st, rate in zip(stages, chain_rates(stages, fs=fs)):
-        if isinstance(st, ResamplerStage):
-            return st.interpolation, rate
-    return 1, chain_rates(stages, fs=fs)[-1]
+    res, rate = resampler_of(stages, fs=fs)
+    return (res.interpolation if res is not None else 1), rate
 
 
 def _path_gain(stages, f, *, fs, image, up):
