@@ -14,14 +14,14 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 __version__ = "0.1.0"
 
 _EXPORTS = {
-    "ChainSpec": "spec",
-    "plan_chain": "planner",
-    "Plan": "plan",
-    "open_capture": "captures",
-    "run_extraction": "extraction",
-    "survey_capture": "survey",
-    "verify_plan": "verify",
-    "export_plan": "export",
+    "ChainSpec": "planning.spec",
+    "plan_chain": "planning.planner",
+    "Plan": "planning.plan",
+    "open_capture": "io.captures",
+    "run_extraction": "run.extraction",
+    "survey_capture": "checks.survey",
+    "verify_plan": "checks.verify",
+    "export_plan": "handoff.export",
     "ChannelizerError": "errors",
 }
 

@@ -52,16 +52,16 @@ def _bits(text):
 
 def read_plan(path):
     """Load a plan file, naming it in any error."""
-    from .extraction import load_plan_file
+    from .run.extraction import load_plan_file
 
     return load_plan_file(path)[0]
 
 
 def _cmd_plan(args):
-    from .atomic import write_text_atomic
-    from .planner import plan_chain
-    from .spec import ChainSpec
-    from .table import format_alternatives, format_plan
+    from .io.atomic import write_text_atomic
+    from .planning.planner import plan_chain
+    from .planning.spec import ChainSpec
+    from .views.table import format_alternatives, format_plan
 
     spec = ChainSpec(
         input_rate=args.rate,
@@ -86,7 +86,7 @@ def _cmd_plan(args):
         write_text_atomic(args.out, result.plan.to_yaml())
         print(f"\nplan written to {args.out}")
     if args.plot:
-        from .plots import plot_plan
+        from .views.plots import plot_plan
 
         _check_output_path(args.plot)
         plot_plan(result.plan, args.plot)
@@ -95,12 +95,12 @@ def _cmd_plan(args):
 
 
 def _cmd_show(args):
-    from .table import format_plan
+    from .views.table import format_plan
 
     plan = read_plan(args.plan)
     print(format_plan(plan))
     if args.plot:
-        from .plots import plot_plan
+        from .views.plots import plot_plan
 
         _check_output_path(args.plot)
         plot_plan(plan, args.plot)
@@ -109,7 +109,7 @@ def _cmd_show(args):
 
 
 def _open_capture(args):
-    from .captures import open_capture
+    from .io.captures import open_capture
 
     return open_capture(
         args.capture,
@@ -134,8 +134,8 @@ def _read_text(path, what):
 
 
 def _cmd_extract(args):
-    from .channels import parse_channel_list, parse_channel_option
-    from .extraction import run_extraction
+    from .io.channels import parse_channel_list, parse_channel_option
+    from .run.extraction import run_extraction
 
     entries = [parse_channel_option(c) for c in args.channel or []]
     base = "."
@@ -205,9 +205,9 @@ def _register_extract(sub):
 
 
 def _cmd_survey(args):
-    from .atomic import write_text_atomic
-    from .channels import dump_channel_list
-    from .survey import format_survey, plot_survey, survey_capture
+    from .io.atomic import write_text_atomic
+    from .io.channels import dump_channel_list
+    from .checks.survey import format_survey, plot_survey, survey_capture
 
     capture = _open_capture(args)
     for path in (args.plot, args.channels_out):
@@ -236,7 +236,7 @@ def _register_survey(sub):
 
 
 def _cmd_demo(args):
-    from .demo import run_demo, write_demo_capture
+    from .demo.job import run_demo, write_demo_capture
 
     if args.write_capture:
         write_demo_capture(args.write_capture)
@@ -270,8 +270,8 @@ def _register_demo(sub):
 
 
 def _cmd_verify(args):
-    from .atomic import write_text_atomic
-    from .verify import plot_verification, verify_plan
+    from .io.atomic import write_text_atomic
+    from .checks.verify import plot_verification, verify_plan
 
     plan = read_plan(args.plan)
     for path in (args.plot, args.json):
@@ -301,8 +301,8 @@ def _register_verify(sub):
 def _cmd_bench(args):
     import json
 
-    from .atomic import write_text_atomic
-    from .bench import format_report, format_soak_report, run_benchmark, run_soak, time_planner
+    from .io.atomic import write_text_atomic
+    from .bench.measure import format_report, format_soak_report, run_benchmark, run_soak, time_planner
 
     if args.json:
         _check_output_path(args.json)
@@ -337,7 +337,7 @@ def _register_bench(sub):
 
 
 def _cmd_export(args):
-    from .export import export_plan
+    from .handoff.export import export_plan
 
     plan = read_plan(args.plan)
     report = export_plan(plan, args.out, coefficient_bits=args.coefficient_bits, vectors=args.vectors)

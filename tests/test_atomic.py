@@ -4,7 +4,7 @@ import os
 
 import pytest
 
-from channelizer.atomic import FileSet, atomic_output, write_text_atomic
+from channelizer.io.atomic import FileSet, atomic_output, write_text_atomic
 from channelizer.errors import ChannelizerError
 
 

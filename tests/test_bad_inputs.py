@@ -25,7 +25,7 @@ import scipy.io.wavfile
 import yaml
 
 from channelizer.cli import main
-from channelizer.sigmf_writer import write_sigmf
+from channelizer.io.sigmf_writer import write_sigmf
 
 BAD = Path(__file__).parent / "bad_inputs"
 REPO = Path(__file__).resolve().parent.parent

@@ -22,7 +22,7 @@ import scipy
 import scipy.signal
 import sigmf
 
-from channelizer.bench import (
+from channelizer.bench.measure import (
     BENCH_SPEC,
     MAX_CHANNELS,
     SAMPLE_RATE,
@@ -36,7 +36,7 @@ from channelizer.bench import (
     run_benchmark,
     run_soak,
 )
-from channelizer.captures import open_capture
+from channelizer.io.captures import open_capture
 from channelizer.errors import ChannelizerError
 
 SECONDS = 0.05

@@ -21,8 +21,8 @@ import sigmf
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from channelizer.captures import Capture, open_capture
-from channelizer.datatypes import from_complex64, parse_datatype, to_complex64
+from channelizer.io.captures import Capture, open_capture
+from channelizer.io.datatypes import from_complex64, parse_datatype, to_complex64
 from channelizer.errors import ChannelizerError
 
 

@@ -12,7 +12,7 @@ import yaml
 
 from channelizer.cli import main
 from channelizer.errors import ChannelizerError
-from channelizer.sigmf_writer import write_sigmf
+from channelizer.io.sigmf_writer import write_sigmf
 from channelizer.units import format_hz, parse_frequency
 
 FS = 2.4e6

@@ -13,13 +13,13 @@ import pytest
 import scipy.signal
 
 from channelizer.errors import ChannelizerError
-from channelizer.export import ExportReport, export_plan
-from channelizer.hogenauer import cic_registers
-from channelizer.integer_chain import IntegerChain
-from channelizer.plan import PLAN_FORMAT, Plan
-from channelizer.planner import plan_chain
-from channelizer.spec import ChainSpec
-from channelizer.stages import CicStage
+from channelizer.handoff.export import ExportReport, export_plan
+from channelizer.planning.hogenauer import cic_registers
+from channelizer.engines.integer_chain import IntegerChain
+from channelizer.planning.plan import PLAN_FORMAT, Plan
+from channelizer.planning.planner import plan_chain
+from channelizer.planning.spec import ChainSpec
+from channelizer.planning.stages import CicStage
 
 
 @pytest.fixture(scope="module")

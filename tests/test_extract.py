@@ -11,14 +11,14 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from channelizer.captures import open_capture
-from channelizer.channels import ChannelEntry, parse_channel_list, parse_channel_option
+from channelizer.io.captures import open_capture
+from channelizer.io.channels import ChannelEntry, parse_channel_list, parse_channel_option
 from channelizer.cli import main
 from channelizer.errors import ChannelizerError
-from channelizer.extraction import run_extraction
-from channelizer.planner import plan_chain
-from channelizer.spec import ChainSpec
-from channelizer.sigmf_writer import write_sigmf
+from channelizer.run.extraction import run_extraction
+from channelizer.planning.planner import plan_chain
+from channelizer.planning.spec import ChainSpec
+from channelizer.io.sigmf_writer import write_sigmf
 
 FS = 2.4e6
 CENTER = 161.0e6

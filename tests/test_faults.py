@@ -3,7 +3,7 @@
 The rule under test (DEVELOPERS.md): no partial output left looking complete. A
 recording is complete when its ``.sigmf-meta`` exists (written last, SigMF 1.x pairs
 metadata with data); a run is complete when ``summary.json`` is written. Temporary
-files are hidden ``.NAME.*.part`` files (channelizer.atomic).
+files are hidden ``.NAME.*.part`` files (channelizer.io.atomic).
 """
 
 import errno
@@ -20,12 +20,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-import channelizer.atomic
-import channelizer.sigmf_writer
+import channelizer.io.atomic
+import channelizer.io.sigmf_writer
 from channelizer.cli import main
-from channelizer.planner import plan_chain
-from channelizer.sigmf_writer import write_sigmf
-from channelizer.spec import ChainSpec
+from channelizer.planning.planner import plan_chain
+from channelizer.io.sigmf_writer import write_sigmf
+from channelizer.planning.spec import ChainSpec
 
 FS = 2.4e6
 CENTER = 161.0e6
@@ -77,7 +77,7 @@ def _extract(capture, plan, out, *channels, extra=()):
 
 def _failing_after(monkeypatch, writes):
     """Make every SigMF data file refuse writes with ENOSPC after ``writes`` successful writes in all."""
-    real = channelizer.sigmf_writer.atomic_output
+    real = channelizer.io.sigmf_writer.atomic_output
     budget = [writes]
 
     class Filling:
@@ -100,16 +100,16 @@ def _failing_after(monkeypatch, writes):
         with real(path, mode) as fh:
             yield Filling(fh)
 
-    monkeypatch.setattr(channelizer.sigmf_writer, "atomic_output", atomic_output)
+    monkeypatch.setattr(channelizer.io.sigmf_writer, "atomic_output", atomic_output)
     # a run's recordings go through a FileSet (they appear together); fill that too
-    real_output = channelizer.atomic.FileSet.output
+    real_output = channelizer.io.atomic.FileSet.output
 
     @contextlib.contextmanager
     def fileset_output(self, path, mode="wb"):
         with real_output(self, path, mode) as fh:
             yield Filling(fh) if str(path).endswith(".sigmf-data") else fh
 
-    monkeypatch.setattr(channelizer.atomic.FileSet, "output", fileset_output)
+    monkeypatch.setattr(channelizer.io.atomic.FileSet, "output", fileset_output)
 
 
 def test_disk_full_mid_run_keeps_the_previous_run(tmp_path, plan_path, small_capture, capsys, monkeypatch):
@@ -169,7 +169,7 @@ def test_failed_rename_of_the_first_file_keeps_the_previous_run(tmp_path, plan_p
 
 
 def test_failed_rename_of_a_later_channel_keeps_the_previous_run(tmp_path, plan_path, small_capture, capsys, monkeypatch):
-    # a run's files are committed together (channelizer.atomic.FileSet): when a later rename
+    # a run's files are committed together (channelizer.io.atomic.FileSet): when a later rename
     # fails, the ones already renamed are put back, so the previous run stays whole
     out, before, rc, err = _rename_fault(tmp_path, plan_path, small_capture, capsys, monkeypatch, 3)
     assert rc == 2 and err.count("\n") == 1

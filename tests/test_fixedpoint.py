@@ -7,15 +7,14 @@ import pytest
 import scipy.signal
 
 from channelizer.errors import ChannelizerError
-from channelizer.fixedpoint import (
+from channelizer.dsp.fixedpoint import (
     IntegerCic,
     IntegerFir,
     IntegerResampler,
     PhaseAccumulatorNco,
-    QuantizedTaps,
-    quantize_taps,
 )
-from channelizer.hogenauer import cic_registers
+from channelizer.planning.quantize import QuantizedTaps, quantize_taps
+from channelizer.planning.hogenauer import cic_registers
 
 
 @pytest.fixture

@@ -6,7 +6,7 @@ from hypothesis import given, settings, strategies as st
 import pytest
 
 from channelizer.errors import ChannelizerError
-from channelizer.hogenauer import CicRegisters, cic_registers
+from channelizer.planning.hogenauer import CicRegisters, cic_registers
 
 
 # ----------------------------------------------------------------- naive reference

@@ -4,15 +4,16 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from channelizer.design import design_decimator, design_halfband
+from channelizer.planning.design import design_decimator, design_halfband
 from channelizer.errors import ChannelizerError
-from channelizer.fixedpoint import IntegerCic, quantize_taps
-from channelizer.hogenauer import cic_registers
-from channelizer.integer_chain import BitWidthTable, IntegerChain
-from channelizer.plan import PLAN_FORMAT, Plan
-from channelizer.planner import plan_chain
-from channelizer.spec import ChainSpec
-from channelizer.stages import CicStage
+from channelizer.dsp.fixedpoint import IntegerCic
+from channelizer.planning.quantize import quantize_taps
+from channelizer.planning.hogenauer import cic_registers
+from channelizer.engines.integer_chain import BitWidthTable, IntegerChain
+from channelizer.planning.plan import PLAN_FORMAT, Plan
+from channelizer.planning.planner import plan_chain
+from channelizer.planning.spec import ChainSpec
+from channelizer.planning.stages import CicStage
 
 OFFSET = 123_456.7  # Hz: an NCO word that is not a round fraction of the rate
 

@@ -14,13 +14,13 @@ import pytest
 import scipy.signal
 import yaml
 
-from channelizer.design import design_halfband, herrmann_length
+from channelizer.planning.design import design_halfband, herrmann_length
 from channelizer.errors import ChannelizerError
-from channelizer.plan import Plan
-from channelizer.planner import plan_chain
-from channelizer.response import composite_response
-from channelizer.spec import ChainSpec, ripple_to_delta
-from channelizer.stages import is_halfband
+from channelizer.planning.plan import Plan
+from channelizer.planning.planner import plan_chain
+from channelizer.planning.response import composite_response
+from channelizer.planning.spec import ChainSpec, ripple_to_delta
+from channelizer.planning.stages import is_halfband
 
 # Specs spanning 1 to 250 Msps and 6 kHz to 20 MHz channels.
 SPECS = [

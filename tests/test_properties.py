@@ -24,16 +24,16 @@ import scipy.io.wavfile
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from channelizer.captures import open_capture
-from channelizer.channels import ChannelEntry
+from channelizer.io.captures import open_capture
+from channelizer.io.channels import ChannelEntry
 from channelizer.errors import ChannelizerError
-from channelizer.extraction import run_extraction
-from channelizer.plan import PLAN_FORMAT, Plan
-from channelizer.planner import plan_chain
-from channelizer.sigmf_writer import write_sigmf
-from channelizer.spec import ChainSpec
-from channelizer.stages import CicStage, FirStage, ResamplerStage, chain_rates
-from channelizer.table import format_plan
+from channelizer.run.extraction import run_extraction
+from channelizer.planning.plan import PLAN_FORMAT, Plan
+from channelizer.planning.planner import plan_chain
+from channelizer.io.sigmf_writer import write_sigmf
+from channelizer.planning.spec import ChainSpec
+from channelizer.planning.stages import CicStage, FirStage, ResamplerStage, chain_rates
+from channelizer.views.table import format_plan
 
 FIXTURE_OK = settings(deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 

@@ -11,7 +11,7 @@ import subprocess
 
 import pytest
 
-from channelizer.demo import run_demo
+from channelizer.demo.job import run_demo
 
 BROWSERS = ("chromium", "chromium-browser", "google-chrome")
 

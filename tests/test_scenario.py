@@ -12,7 +12,7 @@ import pytest
 from scipy import signal
 
 from channelizer.errors import ChannelizerError
-from channelizer.scenario import (
+from channelizer.demo.job.scene import (
     _rrc_pulse,
     apply_iq_imbalance,
     image_rejection_db,

@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 import sigmf
 
-from channelizer.captures import open_capture
+from channelizer.io.captures import open_capture
 from channelizer.errors import ChannelizerError
-from channelizer.names import safe_output_name
-from channelizer.sigmf_writer import SIGMF_VERSION, SigmfWriter, write_sigmf
+from channelizer.io.names import safe_output_name
+from channelizer.io.sigmf_writer import SIGMF_VERSION, SigmfWriter, write_sigmf
 
 
 @pytest.fixture

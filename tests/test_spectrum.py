@@ -8,7 +8,7 @@ import scipy.signal
 
 from channelizer import spectrum
 from channelizer.errors import ChannelizerError
-from channelizer.spectrum import (
+from channelizer.dsp.spectrum import (
     DetectedSignal,
     Psd,
     SpectrogramAccumulator,

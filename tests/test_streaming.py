@@ -10,8 +10,8 @@ import pytest
 import scipy.signal
 
 from channelizer.errors import ChannelizerError
-from channelizer.stages import CicStage, FirStage, ResamplerStage, cic_taps
-from channelizer.streaming import (
+from channelizer.planning.stages import CicStage, FirStage, ResamplerStage, cic_taps
+from channelizer.engines.streaming import (
     Chain,
     ChannelBank,
     FirDecimator,
@@ -491,9 +491,9 @@ def test_bad_block_names_the_problem():
 def test_shared_front_bank_equals_separate_chains():
     # each channel of the bank must equal its own chain (itself checked against
     # scipy.signal.upfirdn above), whatever the block split
-    from channelizer.planner import plan_chain
-    from channelizer.spec import ChainSpec
-    from channelizer.streaming import SharedFrontBank, build_chain
+    from channelizer.planning.planner import plan_chain
+    from channelizer.planning.spec import ChainSpec
+    from channelizer.engines.streaming import SharedFrontBank, build_chain
 
     fs = 2.4e6
     p1 = plan_chain(ChainSpec(input_rate=fs, bandwidth=12.5e3, output_rate=48e3)).plan

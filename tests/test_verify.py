@@ -11,10 +11,10 @@ import scipy.signal
 import yaml
 
 from channelizer.errors import ChannelizerError
-from channelizer.plan import PLAN_FORMAT, Plan
-from channelizer.response import alias_intervals, composite_response, fold
-from channelizer.stages import CicStage, ResamplerStage
-from channelizer.verify import ToneMeasurement, Verification, plot_verification, verify_plan
+from channelizer.planning.plan import PLAN_FORMAT, Plan
+from channelizer.planning.response import alias_intervals, composite_response, fold
+from channelizer.planning.stages import CicStage, ResamplerStage
+from channelizer.checks.verify import ToneMeasurement, Verification, plot_verification, verify_plan
 
 PLANS = pathlib.Path(__file__).resolve().parent.parent / "plans"
 RELAY = "relay-voice-2m4-to-48k.yaml"
@@ -206,7 +206,7 @@ def test_weakened_plan_is_caught(name):
 
 # ----------------------------------------------------------------------------- bit-true
 def test_bit_true_agrees_within_its_floor(relay):
-    pytest.importorskip("channelizer.integer_chain")
+    pytest.importorskip("channelizer.engines.integer_chain")
     v = verify_plan(relay, bit_true=True, tones=60)
     assert v.bit_true and v.amplitude == pytest.approx(0.5, abs=1e-4)
     for t in v.passband:
@@ -222,7 +222,7 @@ def test_bit_true_agrees_within_its_floor(relay):
 
 
 def test_bit_true_refuses_what_the_integer_model_cannot_hold():
-    pytest.importorskip("channelizer.integer_chain")
+    pytest.importorskip("channelizer.engines.integer_chain")
     with pytest.raises(ChannelizerError, match="bits"):
         verify_plan(_load(RATIONAL), bit_true=True, tones=4)
 

@@ -1,0 +1,140 @@
+"""Survey of a capture: spectrum, spectrogram, noise floor and occupied signals.
+
+The capture is streamed once; the Welch average and the spectrogram are built
+from the same blocks.
+"""
+
+from dataclasses import dataclass
+import math
+
+import numpy as np
+
+from ..run.processor import ProgressBar
+from ..dsp.spectrum import (
+    SpectrogramAccumulator,
+    WelchAccumulator,
+    channel_list_from_signals,
+    detect_signals,
+    estimate_noise_floor,
+)
+
+__all__ = ["SurveyResult", "survey_capture", "format_survey", "plot_survey", "OCCUPIED_BANDWIDTH_DEFINITION"]
+
+OCCUPIED_BANDWIDTH_DEFINITION = (
+    "99 % power bandwidth (ITU-R SM.328): 0.5 % of the signal's power, noise subtracted, lies below "
+    "the band and 0.5 % above"
+)
+
+
+@dataclass
+class SurveyResult:
+    capture: object
+    psd: object
+    spectrogram: object
+    noise_floor_dbfs_per_hz: float
+    signals: list
+    threshold_db: float
+
+    def channel_list(self, *, prefix="sig"):
+        """Channel list (name, frequency, bandwidth) that ``extract --channels`` reads."""
+        return channel_list_from_signals(self.signals, prefix=prefix)
+
+
+def survey_capture(capture, *, resolution=None, threshold_db=10.0, block_size=1 << 20, progress=False, rows=300):
+    """Stream ``capture`` once and find the occupied signals.
+
+    Parameters
+    ----------
+    capture : channelizer.captures.Capture
+    resolution : float, optional
+        Frequency resolution in Hz (segment length: the next power of two at or
+        above ``fs / resolution``); default ``fs / 4096``.
+    threshold_db : float
+        Detection threshold above the estimated noise floor.
+    """
+    fs = capture.sample_rate
+    centre = capture.center_frequency or 0.0
+    kw = {"resolution": resolution} if resolution else {"nperseg": 4096}
+    n = capture.num_samples
+    welch = WelchAccumulator(fs=fs, center_frequency=centre, **kw)
+    if n < welch.nperseg:
+        from ..errors import ChannelizerError
+
+        raise ChannelizerError(
+            f"{capture.path}: {n} samples are fewer than one {welch.nperseg}-point segment; use a coarser --resolution"
+        )
+    spec = SpectrogramAccumulator(fs=fs, total_samples=n, rows=rows, nperseg=welch.nperseg, center_frequency=centre)
+    bar = ProgressBar(n, enabled=None if progress else False, label="survey")
+    done = 0
+    for block in capture.blocks(block_size):
+        welch.update(block)
+        spec.update(block)
+        done += block.size
+        bar.update(done)
+    bar.close()
+    psd = welch.result()
+    floor = estimate_noise_floor(psd)
+    signals = detect_signals(psd, threshold_db=threshold_db, noise_floor=floor)
+    return SurveyResult(capture, psd, spec.result(), 10 * math.log10(floor), signals, threshold_db)
+
+
+def format_survey(result):
+    """The printed table of a survey."""
+    from ..units import format_hz
+
+    cap = result.capture
+    psd = result.psd
+    lines = [
+        f"{cap.path}: {cap.num_samples} samples at {format_hz(cap.sample_rate, 'sps')}"
+        + (f", centre {format_hz(cap.center_frequency)}" if cap.center_frequency is not None else ", centre unknown (offsets shown)"),
+        f"Welch average: {psd.window} window, {psd.nperseg}-point segments, {psd.bin_hz:.4g} Hz bins, {psd.segments} segments",
+        f"Noise floor {result.noise_floor_dbfs_per_hz:.1f} dBFS/Hz; signals at least {result.threshold_db:g} dB above it",
+        f"Occupied bandwidth: {OCCUPIED_BANDWIDTH_DEFINITION}",
+        "",
+        f"{'#':>3}  {'centre':>16} {'bandwidth':>12} {'power':>11} {'SNR':>8}",
+    ]
+    for i, s in enumerate(result.signals, 1):
+        lines.append(
+            f"{i:>3}  {format_hz(s.center_hz):>16} {format_hz(s.occupied_bandwidth_hz):>12} "
+            f"{s.power_dbfs:>6.1f} dBFS {s.snr_db:>6.1f} dB"
+        )
+    if not result.signals:
+        lines.append("  (no signal above the threshold)")
+    return "\n".join(lines)
+
+
+def plot_survey(result, path):
+    """PSD (with detections marked) above a spectrogram, absolute Hz when the centre is known."""
+    from ..views.plots import _hz_axis, new_figure, save_figure
+
+    psd, sg = result.psd, result.spectrogram
+    fig, axes = new_figure(2, 1, size=(11, 8))
+    ax, bx = axes[0, 0], axes[1, 0]
+    ax.plot(psd.freqs, psd.dbfs_per_hz(), lw=0.7)
+    ax.axhline(result.noise_floor_dbfs_per_hz, color="gray", ls=":", lw=1, label="estimated noise floor")
+    for i, s in enumerate(result.signals, 1):
+        ax.axvspan(s.lower_hz, s.upper_hz, color="tab:orange", alpha=0.25)
+        ax.annotate(str(i), (s.center_hz, s.power_dbfs - 10 * math.log10(max(s.occupied_bandwidth_hz, 1.0))), fontsize=8, ha="center")
+    ax.set_ylabel("PSD (dBFS/Hz)")
+    ax.set_title(f"Welch PSD, {psd.window} window, {psd.bin_hz:.4g} Hz resolution; shaded: occupied (99 %) bands")
+    ax.legend(loc="upper right", fontsize=8)
+    ax.grid(alpha=0.3)
+    _hz_axis(ax)
+    ax.set_xlim(psd.freqs[0], psd.freqs[-1])
+    p = sg.power_db
+    finite = p[np.isfinite(p)]
+    vmin = np.percentile(finite, 5) if finite.size else None
+    im = bx.imshow(
+        p,
+        aspect="auto",
+        origin="lower",
+        extent=[sg.freqs[0], sg.freqs[-1], sg.times[0], sg.times[-1] if len(sg.times) > 1 else sg.times[0] + 1e-3],
+        vmin=vmin,
+        cmap="viridis",
+    )
+    fig.colorbar(im, ax=bx, label="dBFS/Hz", pad=0.01)
+    bx.set_ylabel("time (s)")
+    bx.set_xlabel("frequency" if result.capture.center_frequency is not None else "offset from centre")
+    bx.set_title("spectrogram")
+    _hz_axis(bx)
+    save_figure(fig, path)

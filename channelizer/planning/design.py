@@ -1,0 +1,394 @@
+"""Design of the individual stages, each only as strict as the final channel needs.
+
+A stage that decimates from ``fs`` to ``fo = fs / D`` must attenuate only the
+bands ``k fo +- fp`` (k >= 1), which fold onto the final passband ``[0, fp]``
+at its output; everything else is left free ("don't care").  Later stages
+remove what lands elsewhere (Crochiere & Rabiner, Proc. IEEE 69(3), 1981).
+Half-bands use the Vaidyanathan & Nguyen (1987) construction; FIRs are
+equiripple (Parks-McClellan through ``scipy.signal.remez``); the CIC
+compensator is a minimax fit to ``1/|H_cic|`` by Lawson's iteratively
+reweighted least squares.
+"""
+
+import functools
+import math
+import warnings
+
+import numpy as np
+import scipy.signal
+
+from ..errors import ChannelizerError
+from .stages import CicStage, fir_response
+
+__all__ = [
+    "alias_bands",
+    "herrmann_length",
+    "design_halfband",
+    "design_decimator",
+    "design_compensator",
+    "choose_cic_order",
+    "FirDesign",
+]
+
+MAX_TAPS = 4001
+
+
+def alias_bands(fs, decimation, fp):
+    """Bands in ``[0, fs/2]`` that fold onto ``[-fp, fp]`` after decimating by ``decimation``."""
+    fo = fs / decimation
+    bands = []
+    k = 1
+    while k * fo - fp < fs / 2.0:
+        bands.append((k * fo - fp, min(k * fo + fp, fs / 2.0)))
+        k += 1
+    return bands
+
+
+def herrmann_length(dp, ds, df):
+    """Equiripple FIR length estimate of Herrmann, Rabiner & Chan (BSTJ 52(6), 1973).
+
+    ``N = Dinf(dp, ds) / df - f(dp, ds) df + 1`` with ``df`` the transition width
+    over the sample rate.
+    """
+    lp, ls = math.log10(dp), math.log10(ds)
+    a = (5.309e-3, 7.114e-2, -4.761e-1, -2.66e-3, -5.941e-1, -4.278e-1)
+    dinf = (a[0] * lp**2 + a[1] * lp + a[2]) * ls + (a[3] * lp**2 + a[4] * lp + a[5])
+    f = 11.01217 + 0.51244 * (lp - ls)
+    return dinf / df - f * df + 1
+
+
+class FirDesign:
+    """Result of a stage design: taps and the worst deviations found on its bands."""
+
+    def __init__(self, taps, passband_error, stopband_peak):
+        self.taps = tuple(float(t) for t in taps)
+        self.passband_error = float(passband_error)
+        self.stopband_peak = float(stopband_peak)
+
+
+def _dense(lo, hi, n):
+    return np.linspace(lo, hi, max(int(n), 8))
+
+
+def _check(taps, *, fs, fp, stopbands, dp, ds, target=None, gain=1.0, shaping=None):
+    """Does a design meet its bands?  Returns (ok, passband error, stopband peak).
+
+    The response is taken on a dense FFT grid (at least 16 points per tap) plus
+    the exact band edges.
+    """
+    h = np.asarray(taps, dtype=float)
+    if not np.all(np.isfinite(h)):
+        return False, math.inf, math.inf
+    n = h.size
+    nfft = 1 << max(12, int(math.ceil(math.log2(16 * n))))
+    mag = np.abs(np.fft.rfft(h, nfft)) / gain
+    grid = np.arange(mag.size) * fs / nfft
+    edges = [fp] + [e for band in stopbands for e in band]
+    mag_e = np.abs(fir_response(h, np.array(edges), fs=fs)) / gain
+    sel = grid <= fp
+    f_pb = np.concatenate([grid[sel], [fp]])
+    h_pb = np.concatenate([mag[sel], mag_e[:1]])
+    t = np.ones_like(f_pb) if target is None else target(f_pb)
+    pb_err = float(np.max(np.abs(h_pb / t - 1.0)))
+    sb_peak = float(np.max(mag_e[1:])) if len(edges) > 1 else 0.0
+    for lo, hi in stopbands:
+        sel = (grid >= lo) & (grid <= hi)
+        if np.any(sel):
+            sb_peak = max(sb_peak, float(np.max(mag[sel])))
+    # nowhere may the stage (times ``shaping``, the response before it) amplify
+    # beyond its passband gain, don't-care bands included
+    over = float(np.max(mag if shaping is None else mag * shaping(grid)))
+    limit = (1.0 + dp) * (1.0 if shaping is not None else float(np.max(t)))
+    ok = pb_err <= dp and sb_peak <= ds and over <= limit
+    return ok, pb_err, sb_peak
+
+
+def _merge(bands, min_gap):
+    out = []
+    for lo, hi in sorted(bands):
+        if out and lo - out[-1][1] < min_gap:
+            out[-1] = (out[-1][0], max(out[-1][1], hi))
+        else:
+            out.append((lo, hi))
+    return out
+
+
+def _remez(numtaps, fp, stopbands, fs, dp, ds, gain):
+    edges = [0.0, fp]
+    desired = [gain]
+    weight = [1.0]
+    for lo, hi in stopbands:
+        edges += [lo, hi]
+        desired.append(0.0)
+        weight.append(dp / ds)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            h = scipy.signal.remez(numtaps, edges, desired, weight=weight, fs=fs, maxiter=200)
+        except ValueError:
+            h = np.full(numtaps, np.nan)
+    if not np.all(np.isfinite(h)):
+        # Parks-McClellan breaks down on very narrow bands; a Kaiser-window design
+        # (Kaiser 1974; scipy.signal.firwin) with the cutoff mid-transition serves instead.
+        beta = scipy.signal.kaiser_beta(-20.0 * math.log10(min(dp, ds)))
+        cutoff = 0.5 * (fp + stopbands[0][0])
+        h = gain * scipy.signal.firwin(numtaps, cutoff, window=("kaiser", beta), fs=fs)
+    return h
+
+
+def _search_length(make, estimate, *, step_limit=40):
+    """Smallest odd length for which ``make(n)`` meets its target, starting near ``estimate``.
+
+    Brackets the answer by steps of about 5 % from the estimate, then bisects, so a
+    typical stage costs a handful of designs.
+    """
+    memo = {}
+
+    def ok(n):
+        if n not in memo:
+            memo[n] = make(n)
+        return memo[n][0]
+
+    n = max(3, int(math.ceil(estimate)) | 1)
+    step = max(2, (n // 20) & ~1)
+    if ok(n):
+        hi = n
+        lo = n - step
+        while lo >= 3 and ok(lo):
+            hi, lo = lo, lo - step
+            step *= 2
+        lo = max(lo, 1)
+    else:
+        lo = n
+        hi = n + step
+        tries = 0
+        while not ok(hi):
+            lo, hi = hi, hi + step
+            step *= 2
+            tries += 1
+            if hi > MAX_TAPS or tries > step_limit:
+                return None, None
+    # invariant: ok(hi), not ok(lo) (or lo below 3)
+    while hi - lo > 2:
+        mid = ((lo + hi) // 2) | 1
+        if mid >= hi:
+            mid = hi - 2
+        if mid <= lo:
+            break
+        if ok(mid):
+            hi = mid
+        else:
+            lo = mid
+    return hi, memo[hi]
+
+
+@functools.lru_cache(maxsize=512)
+def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=False, protect=None, stop_edge=None):
+    """Equiripple low-pass for decimation by ``decimation``, alias-aware.
+
+    Parameters
+    ----------
+    fp : float
+        Passband edge in Hz.
+    decimation : int
+        Decimation that follows the filter.
+    fs : float
+        Rate at which the filter runs, Hz.
+    dp, ds : float
+        Largest passband deviation and stopband magnitude (relative to ``gain``).
+    gain : float
+        Passband gain (``L`` for an interpolation filter).
+    full_stopband : bool
+        Attenuate everything from the first alias band edge to ``fs/2`` instead
+        of the alias bands alone.
+    protect : float, optional
+        Half-width of the band kept free of aliases (default ``fp``).
+    stop_edge : float, optional
+        Attenuate everything from this frequency to ``fs/2`` (a final stage that
+        also removes the neighbours).
+
+    Returns
+    -------
+    FirDesign or None
+        None when no length up to the limit meets the target.
+    """
+    protect = fp if protect is None else protect
+    if stop_edge is not None:
+        bands = [(stop_edge, fs / 2.0)]
+    else:
+        bands = alias_bands(fs, decimation, protect)
+        if not bands:
+            raise ChannelizerError(f"decimation {decimation} at {fs:g} Hz folds nothing onto the passband")
+    if bands[0][0] <= fp:
+        return None
+    if full_stopband and stop_edge is None:
+        bands = [(bands[0][0], fs / 2.0)]
+    else:
+        bands = _merge(bands, min_gap=(bands[0][0] - fp) * 0.5)
+    df = (bands[0][0] - fp) / fs
+    est = herrmann_length(dp, ds, df)
+
+    def make(n):
+        h = _remez(n, fp, bands, fs, dp, ds, gain)
+        return _check(h, fs=fs, fp=fp, stopbands=bands, dp=dp, ds=ds, gain=gain) + (h,)
+
+    n, res = _search_length(make, est)
+    if n is None:
+        if not full_stopband and stop_edge is None:
+            return design_decimator(fp, decimation, fs=fs, dp=dp, ds=ds, gain=gain, full_stopband=True, protect=protect)
+        return None
+    return FirDesign(res[3], res[1], res[2])
+
+
+@functools.lru_cache(maxsize=512)
+def design_halfband(fp, *, fs, delta):
+    """Half-band decimator by 2 with passband ``[0, fp]`` and stopband ``[fs/2 - fp, fs/2]``.
+
+    Construction of Vaidyanathan & Nguyen (IEEE Trans. CAS 34(3), 1987, from memory):
+    an even-length ``2K`` equiripple ``g`` on ``[0, 2 fp / fs]`` gives
+    ``h = (z^{-(2K-1)} + G(z^2)) / 2`` of length ``4K - 1``, centre tap 0.5, every
+    other tap zero, with equal passband and stopband ripple ``delta``.
+
+    Returns
+    -------
+    FirDesign or None
+        None when ``fp >= fs/4`` (no half-band can serve) or no length meets ``delta``.
+    """
+    fpn = fp / fs
+    if fpn >= 0.25:
+        return None
+    stop = [(fs / 2.0 - fp, fs / 2.0)]
+
+    def make(n4):
+        # n4 = 4K - 1 -> K
+        k = (n4 + 1) // 4
+        if k < 1:
+            k = 1
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                g = scipy.signal.remez(2 * k, [0.0, 2.0 * fpn], [1.0], fs=1.0, maxiter=200)
+            except ValueError:
+                g = np.full(2 * k, np.nan)
+        if np.all(np.isfinite(g)):
+            h = np.zeros(4 * k - 1)
+            h[0::2] = g / 2.0
+            h[2 * k - 1] = 0.5
+        else:
+            # Narrow passbands defeat Parks-McClellan; a Kaiser-windowed ideal half-band
+            # 0.5 sinc(n/2) w[n] keeps the centre tap 0.5 and the zeros exact.
+            beta = scipy.signal.kaiser_beta(-20.0 * math.log10(delta))
+            n = np.arange(4 * k - 1) - (2 * k - 1)
+            h = 0.5 * np.sinc(n / 2.0) * np.kaiser(4 * k - 1, beta)
+        return _check(h, fs=fs, fp=fp, stopbands=stop, dp=delta, ds=delta) + (h,)
+
+    est = herrmann_length(delta, delta, 0.5 - 2 * fpn)
+    k = k0 = max(1, int(math.ceil((est + 1) / 4)))
+    while True:
+        res = make(4 * k - 1)
+        if res[0]:
+            while k > 1:
+                r2 = make(4 * (k - 1) - 1)
+                if not r2[0]:
+                    break
+                k, res = k - 1, r2
+            return FirDesign(res[3], res[1], res[2])
+        k += 1
+        if 4 * k - 1 > MAX_TAPS or k > 3 * k0 + 10:
+            return None
+
+
+def choose_cic_order(decimation, *, fs, fp, ds, differential_delay=1, max_order=8):
+    """Smallest CIC order whose alias bands are all attenuated below ``ds``.
+
+    The CIC alone carries the rejection of the bands ``k fs/R +- fp``; the worst
+    point of each is its inner edge (Hogenauer 1981).  Returns None when even
+    ``max_order`` is not enough.
+    """
+    bands = alias_bands(fs, decimation, fp)
+    f = np.concatenate([_dense(lo, hi, 16) for lo, hi in bands])
+    for order in range(1, max_order + 1):
+        st = CicStage(decimation=decimation, order=order, differential_delay=differential_delay)
+        if float(np.max(np.abs(st.response(f, fs=fs)))) <= ds:
+            return order
+    return None
+
+
+@functools.lru_cache(maxsize=256)
+def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=None, stop_edge=None):
+    """FIR whose passband is ``1/|H_cic|`` on ``[0, fp]``: it undoes the CIC's droop.
+
+    Minimax fit by Lawson's algorithm (iteratively reweighted least squares) of a
+    symmetric odd-length FIR running at ``fs`` (default: the CIC's output rate).
+    Its stopbands are the alias bands of its own decimation; without decimation
+    the band ``[fs/2 - fp, fs/2]`` is kept low as a guard so that the stage never
+    amplifies.  Used both for a separate compensator and for a channel FIR that
+    carries the compensation itself.  ``protect`` is the half-width kept free of
+    aliases (default ``fp``); ``stop_edge`` makes the stopband run from there to
+    ``fs/2`` (a final stage that also removes the neighbours).
+
+    Returns
+    -------
+    FirDesign or None
+
+    References
+    ----------
+    C. L. Lawson, "Contributions to the theory of linear least maximum
+    approximation", Ph.D. thesis, UCLA, 1961 (from memory); the CIC response is
+    Hogenauer's (1981).
+    """
+    fs = fs_cic / cic.decimation if fs is None else fs
+    protect = fp if protect is None else protect
+    if stop_edge is not None:
+        stop = [(stop_edge, fs / 2.0)]
+        ds_stage = ds
+    elif decimation == 1:
+        if protect >= fs / 4.0:
+            return None
+        stop = [(fs / 2.0 - protect, fs / 2.0)]
+        ds_stage = max(ds, 1e-2)
+    else:
+        stop = _merge(alias_bands(fs, decimation, protect), min_gap=0.0)
+        if stop[0][0] <= fp:
+            return None
+        ds_stage = ds
+
+    def target(f):
+        return 1.0 / np.abs(cic.response(f, fs=fs_cic))
+
+    def shaping(f):
+        return np.abs(cic.response(f, fs=fs_cic))
+
+    def make(n):
+        k = (n - 1) // 2
+        pts = max(60, 3 * k)
+        f_pb = _dense(0.0, fp, 2 * pts)
+        f_sb = np.concatenate([_dense(lo, hi, pts * max(1.0, (hi - lo) / fp)) for lo, hi in stop])
+        t_pb = target(f_pb)
+        idx = np.arange(k + 1)
+        f = np.concatenate([f_pb, f_sb])
+        basis = np.cos(2 * np.pi * np.outer(f, idx) / fs)
+        basis[:, 1:] *= 2.0
+        t = np.concatenate([t_pb, np.zeros_like(f_sb)])
+        w0 = np.concatenate([1.0 / (dp * t_pb), np.full(f_sb.size, 1.0 / ds_stage)])
+        w = np.ones_like(t)
+        a = None
+        for _ in range(20):
+            ww = w * w0**2
+            gram = (basis * ww[:, None]).T @ basis
+            try:
+                a = np.linalg.solve(gram, (basis * ww[:, None]).T @ t)
+            except np.linalg.LinAlgError:
+                a = np.linalg.lstsq(basis * np.sqrt(ww)[:, None], t * np.sqrt(ww), rcond=None)[0]
+            e = np.abs(basis @ a - t) * w0
+            w = w * e
+            w /= w.sum()
+            w = np.maximum(w, 1e-12)
+        h = np.concatenate([a[:0:-1], [a[0]], a[1:]])
+        return _check(h, fs=fs, fp=fp, stopbands=stop, dp=dp, ds=ds_stage, target=target, shaping=shaping) + (h,)
+
+    est = herrmann_length(dp, ds_stage, (stop[0][0] - fp) / fs)
+    n, res = _search_length(make, est, step_limit=30)
+    if n is None or n > 1001:
+        return None
+    return FirDesign(res[3], res[1], res[2])

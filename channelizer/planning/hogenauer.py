@@ -1,0 +1,215 @@
+"""Register growth and register pruning of a CIC decimator (Hogenauer 1981).
+
+Everything here is exact integer arithmetic: the bit counts come from integer
+comparisons, never from rounding a floating-point logarithm.
+
+References
+----------
+E. B. Hogenauer, "An economical class of digital filters for decimation and
+interpolation", IEEE Trans. ASSP 29(2):155-162, 1981.
+"""
+
+from dataclasses import dataclass
+import functools
+import math
+import numbers
+
+import numpy as np
+
+from ..errors import ChannelizerError
+
+__all__ = ["CicRegisters", "cic_registers"]
+
+MAX_ORDER = 10
+
+
+@dataclass(frozen=True)
+class CicRegisters:
+    """Bit widths of a (possibly pruned) CIC decimator.
+
+    Stages are numbered as in Hogenauer (1981): integrators ``1..N``, combs
+    ``N+1..2N``, the output truncation ``2N+1``.  Tuples are indexed from 0, so
+    ``discarded[j - 1]`` belongs to stage ``j``.
+
+    Attributes
+    ----------
+    order, decimation, differential_delay : int
+        ``N``, ``R`` and ``M``.
+    input_bits, output_bits : int
+        Two's-complement widths of the input and output samples.
+    full_bits : int
+        Width that holds the unpruned result: ``input_bits + ceil(N log2(R M))``.
+    gain : int
+        DC gain ``(R M)^N``.
+    discarded : tuple of int
+        ``2N + 1`` counts of least-significant bits dropped, measured from the
+        full-precision LSB: at integrators ``1..N``, combs ``N+1..2N`` and the output.
+    widths : tuple of int
+        ``2N`` register widths, ``full_bits - discarded[j]`` for the integrators
+        then the combs.
+    output_shift : int
+        ``discarded[2N]``: the full-precision result is shifted right by this much.
+    variance_terms : tuple of int
+        ``F_j^2``, the sum of squares of the impulse response from error source
+        ``j`` to the output, for ``j = 1..2N+1`` (``F_{2N+1}^2 = 1``).
+    """
+
+    order: int
+    decimation: int
+    differential_delay: int
+    input_bits: int
+    output_bits: int
+    full_bits: int
+    gain: int
+    discarded: tuple
+    widths: tuple
+    output_shift: int
+    variance_terms: tuple
+
+    @property
+    def output_noise_variance(self):
+        """Predicted variance of the truncation noise at the output, in output LSB^2.
+
+        ``sum_j F_j^2 sigma_j^2`` with ``sigma_j^2 = 2^(2 B_j) / 12`` for every source
+        that discards bits (Hogenauer 1981, eqs. for the total error variance),
+        divided by the output LSB squared ``2^(2 B_{2N+1})``.  A source whose count
+        equals the previous stage's drops nothing new and adds nothing.  With the
+        pruning rule every register source adds at most ``1/(2N)`` of the output's
+        own ``1/12``, so the total is at most ``2/12``.
+        """
+        out = self.output_shift
+        total = 0.0
+        previous = 0
+        for b, f2 in zip(self.discarded, self.variance_terms):
+            if b > previous:
+                total += f2 * 2.0 ** (2 * (b - out)) / 12.0
+            previous = b
+        return total
+
+
+def _checked_int(value, name, *, low=1, high=None):
+    """``value`` as an int in ``low..high``, else a ChannelizerError naming it."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise ChannelizerError(f"{name} must be an integer, got {value!r}")
+    value = int(value)
+    if value < low or (high is not None and value > high):
+        limit = f"{low}..{high}" if high is not None else f">= {low}"
+        raise ChannelizerError(f"{name} must be {limit}, got {value}")
+    return value
+
+
+def _ceil_log2(n):
+    """``ceil(log2 n)`` for a positive integer, exactly."""
+    return (n - 1).bit_length()
+
+
+@functools.lru_cache(maxsize=64)
+def _variance_terms(order, rm):
+    """``F_j^2`` for ``j = 1..2N+1``; depends on ``N`` and ``R M`` only.
+
+    Integrators (Hogenauer 1981, impulse response from source j to the output):
+    ``h_j(k) = sum_{l=0}^{floor(k/RM)} (-1)^l C(N, l) C(N - j + k - RM l, k - RM l)``
+    for ``k = 0 .. N RM - N + j - 1``; combs: ``h_j(k) = (-1)^k C(2N + 1 - j, k)``.
+    Exact Python integers held in object arrays.
+    """
+    n = order
+    terms = []
+    for j in range(1, n + 1):
+        length = n * rm - n + j
+        # c(m) = C(N - j + m, m): the response of N - j + 1 cascaded integrators.
+        c = np.empty(length, dtype=object)
+        c[:] = [math.comb(n - j + m, m) for m in range(length)]
+        h = np.zeros(length, dtype=object)
+        for l in range(n + 1):
+            start = rm * l
+            if start >= length:
+                break
+            h[start:] += (-1) ** l * math.comb(n, l) * c[: length - start]
+        terms.append(int(np.dot(h, h)))
+    for j in range(n + 1, 2 * n + 1):
+        terms.append(math.comb(2 * (2 * n + 1 - j), 2 * n + 1 - j))  # sum_k C(m, k)^2 = C(2m, m)
+    terms.append(1)
+    return tuple(terms)
+
+
+def cic_registers(order, decimation, differential_delay=1, *, input_bits, output_bits, prune=True):
+    """Register widths of a CIC decimator by Hogenauer's growth and pruning rules.
+
+    Parameters
+    ----------
+    order : int
+        Number of integrator/comb pairs ``N``, 1 to 10.
+    decimation : int
+        Rate change ``R >= 1``.
+    differential_delay : int, optional
+        Comb delay ``M >= 1`` in output samples.
+    input_bits, output_bits : int
+        Two's-complement widths of the input and the output samples.
+    prune : bool, optional
+        When False, no register is pruned and only the output is truncated.
+
+    Returns
+    -------
+    CicRegisters
+
+    Notes
+    -----
+    The full width is ``input_bits + ceil(N log2(R M))``; the paper's ``Bmax`` is
+    one less (the MSB index).  The output discards ``B_{2N+1} = Bmax - Bout + 1``
+    bits.  Every earlier source j discards
+    ``B_j = floor(-log2 F_j + log2 sigma_{T,2N+1} + 0.5 log2(6 / N))`` bits with
+    ``sigma_{T,2N+1}^2 = 2^(2 B_{2N+1}) / 12``, clamped at 0, so that it adds at
+    most ``1/(2N)`` of the output truncation variance.  That expression simplifies
+    to ``B_{2N+1} - log2(2 N F_j^2) / 2``, and its floor is evaluated exactly as
+    ``B_{2N+1} - ceil(ceil(log2(2 N F_j^2)) / 2)``.  When ``output_bits >=
+    full_bits`` nothing is discarded.  The counts never decrease from one stage to
+    the next: a register cannot regain bits its input has lost, so where the rule
+    gives fewer bits than the previous stage (it can when ``R M <= 2``) the previous
+    count is kept.
+
+    References
+    ----------
+    E. B. Hogenauer, "An economical class of digital filters for decimation and
+    interpolation", IEEE Trans. ASSP 29(2):155-162, 1981.
+
+    Examples
+    --------
+    >>> r = cic_registers(3, 8, input_bits=12, output_bits=12)
+    >>> r.full_bits, r.discarded
+    (21, (0, 3, 4, 5, 6, 7, 9))
+    """
+    n = _checked_int(order, "CIC order", high=MAX_ORDER)
+    r = _checked_int(decimation, "CIC decimation")
+    m = _checked_int(differential_delay, "CIC differential_delay")
+    b_in = _checked_int(input_bits, "CIC input_bits")
+    b_out = _checked_int(output_bits, "CIC output_bits")
+    if not isinstance(prune, bool):
+        raise ChannelizerError(f"CIC prune must be True or False, got {prune!r}")
+    gain = (r * m) ** n
+    full = b_in + _ceil_log2(gain)
+    f2 = _variance_terms(n, r * m)
+    b_last = max(full - b_out, 0)
+    dropped = []
+    lsb = 0
+    for j in range(2 * n):
+        if prune:
+            half_log = (_ceil_log2(2 * n * f2[j]) + 1) // 2  # ceil(ceil(log2 X) / 2)
+            # A register cannot hold bits its input has already lost: where the rule
+            # asks for fewer bits than the stage before dropped (only when R M <= 2),
+            # keep the earlier count.
+            lsb = max(lsb, b_last - half_log)
+        dropped.append(lsb)
+    discarded = tuple(dropped) + (b_last,)
+    return CicRegisters(
+        order=n,
+        decimation=r,
+        differential_delay=m,
+        input_bits=b_in,
+        output_bits=b_out,
+        full_bits=full,
+        gain=gain,
+        discarded=discarded,
+        widths=tuple(full - b for b in discarded[:-1]),
+        output_shift=b_last,
+        variance_terms=f2,
+    )

@@ -1,0 +1,387 @@
+"""Apply plans to a capture: one read of the file, every channel's chain, one recording each.
+
+Flow: the capture reader yields blocks; each channel's chain (float runners from
+:mod:`channelizer.streaming`, or the bit-true integer chain) turns them into
+output samples; a SigMF writer per channel streams them to a temporary file that
+is renamed only when the whole run has succeeded.  Spectra for the plots are
+accumulated on the way, so the file is read once.
+"""
+
+from dataclasses import dataclass, field
+import contextlib
+import hashlib
+import json
+import math
+import os
+import sys
+import time
+
+import numpy as np
+
+from ..io.atomic import FileSet, write_text_atomic
+from ..errors import ChannelizerError
+from ..io.names import safe_output_name
+from ..dsp.spectrum import WelchAccumulator
+from ..planning.stages import chain_rates
+
+__all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples", "ProgressBar"]
+
+DEFAULT_BLOCK = 1 << 20
+#: At most this many input samples go into the overview spectrum (spread over the file).
+OVERVIEW_SAMPLES = 8 << 20
+
+
+def plan_identity(data):
+    """Identity of a plan file: SHA-256 of its bytes."""
+    return hashlib.sha256(data).hexdigest()
+
+
+@dataclass
+class ChannelRequest:
+    """One channel to extract.
+
+    Attributes
+    ----------
+    name : str
+        Output base name (checked by :func:`channelizer.names.safe_output_name`).
+    offset : float
+        Channel centre minus capture centre, Hz.
+    plan : Plan
+    plan_id : str
+        Identity of the plan file (see :func:`plan_identity`).
+    plan_source : str
+        Where the plan came from, for the metadata.
+    """
+
+    name: str
+    offset: float
+    plan: object
+    plan_id: str = ""
+    plan_source: str = ""
+
+
+@dataclass
+class ChannelResult:
+    name: str
+    offset: float
+    center_frequency: float | None
+    output_rate: float
+    samples: int
+    mean_power_dbfs: float
+    group_delay_output_samples: float
+    plan_id: str
+    files: list
+    clipped: int = 0
+    spectrum: object = None
+    alias_audit: list = field(default_factory=list)
+
+
+@dataclass
+class ExtractResult:
+    capture: object
+    channels: list
+    input_samples: int
+    seconds: float
+    overview: object = None
+    summary_path: str = ""
+
+
+def chain_delay_output_samples(stages, *, fs):
+    """Group delay of a chain in output samples (linear-phase stages: (L-1)/2 each)."""
+    rates = chain_rates(stages, fs=fs)
+    delay_in = sum(st.delay * fs / rate for st, rate in zip(stages, rates))
+    return delay_in * rates[-1] / fs
+
+
+class ProgressBar:
+    """A one-line progress bar on stderr, shown only on a terminal."""
+
+    def __init__(self, total, *, enabled=None, label="", stream=None):
+        self.stream = stream or sys.stderr
+        self.enabled = (self.stream.isatty() if enabled is None else enabled) and total > 0
+        self.total = total
+        self.label = label
+        self.start = time.monotonic()
+        self.last = 0.0
+
+    def update(self, done):
+        if not self.enabled:
+            return
+        now = time.monotonic()
+        if now - self.last < 0.2 and done < self.total:
+            return
+        self.last = now
+        frac = min(done / self.total, 1.0)
+        rate = done / max(now - self.start, 1e-9)
+        bar = "#" * int(frac * 30)
+        self.stream.write(f"\r{self.label} [{bar:<30}] {frac * 100:5.1f}% {rate / 1e6:7.2f} Msps")
+        self.stream.flush()
+
+    def close(self):
+        if self.enabled:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def check_channel(capture, req):
+    """Refuse a channel whose rate or band does not fit the capture."""
+    plan = req.plan
+    fs = capture.sample_rate
+    if not math.isclose(fs, plan.input_rate, rel_tol=1e-9):
+        raise ChannelizerError(
+            f"channel {req.name}: the capture {capture.path} runs at {fs:g} Hz but its plan"
+            f"{' ' + str(req.plan_source) if req.plan_source else ''} expects {plan.input_rate:g} Hz"
+        )
+    half = plan.bandwidth / 2.0
+    if abs(req.offset) + half > fs / 2.0:
+        where = capture.center_frequency
+        span = (
+            f"{where - fs / 2:g} to {where + fs / 2:g} Hz" if where is not None else f"{-fs / 2:g} to {fs / 2:g} Hz offset"
+        )
+        raise ChannelizerError(
+            f"channel {req.name}: passband {req.offset - half:+g} to {req.offset + half:+g} Hz from centre "
+            f"leaves the captured band ({span})"
+        )
+
+
+def _prepare_out_dir(out_dir):
+    if os.path.exists(out_dir) and not os.path.isdir(out_dir):
+        raise ChannelizerError(f"{out_dir}: exists and is not a folder")
+    try:
+        os.makedirs(out_dir, exist_ok=True)
+    except OSError as exc:
+        raise ChannelizerError(f"{out_dir}: cannot create output folder ({exc.strerror})") from None
+
+
+def _dbfs(power):
+    return 10.0 * math.log10(power) if power > 0 else -math.inf
+
+
+def _integer_chain(req, capture):
+    from ..engines.integer_chain import IntegerChain
+
+    return IntegerChain.from_plan(req.plan, offset=req.offset, fs=capture.sample_rate)
+
+
+def extract_channels(
+    capture,
+    requests,
+    out_dir,
+    *,
+    output_format="cf32_le",
+    bit_true=False,
+    block_size=DEFAULT_BLOCK,
+    nonfinite="error",
+    progress=False,
+    spectra=True,
+    fileset=None,
+):
+    """Extract every requested channel from ``capture`` in one pass.
+
+    Parameters
+    ----------
+    capture : channelizer.captures.Capture
+    requests : list of ChannelRequest
+    out_dir : str
+        Folder for ``NAME.sigmf-data``/``NAME.sigmf-meta`` and ``summary.json``.
+    output_format : {'cf32_le', 'ci16_le'}
+    bit_true : bool
+        Run the integer chain (NCO, pruned CIC, quantised FIRs) on the raw integers.
+    block_size : int
+        Input samples read at a time; the output does not depend on it.
+    nonfinite : {'error', 'zero'}
+        What to do with NaN or infinite samples in a float capture.
+    progress : bool
+        Show a progress bar on stderr (when it is a terminal).
+    spectra : bool
+        Accumulate the input and output spectra for the plots.
+    fileset : channelizer.atomic.FileSet, optional
+        Leave the recordings uncommitted in this set (the caller adds the summary
+        and commits, so that all outputs of a run appear together); by default
+        they are committed here once every channel is complete.
+
+    Returns
+    -------
+    ExtractResult
+    """
+    if not requests:
+        raise ChannelizerError("no channel to extract: give --channel NAME=FREQ or --channels FILE")
+    names = [safe_output_name(r.name) for r in requests]
+    if len(set(names)) != len(names):
+        dup = sorted({n for n in names if names.count(n) > 1})
+        raise ChannelizerError(f"channel names must be unique; repeated: {', '.join(dup)}")
+    for r in requests:
+        check_channel(capture, r)
+    if bit_true and not capture.datatype.is_integer:
+        raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
+    _prepare_out_dir(out_dir)
+    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra)
+    own_set = fileset is None
+    files = FileSet() if own_set else fileset
+    t0 = time.perf_counter()
+    try:
+        one.run(out_dir, files, output_format=output_format, nonfinite=nonfinite, progress=progress)
+        if own_set:
+            files.commit()  # every recording appears together, or none does
+    except BaseException:
+        if own_set:
+            files.abort()
+        raise
+    return one.result(time.perf_counter() - t0)
+
+
+class _Pass:
+    """One read of a capture through every channel's chain, with its accumulators."""
+
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra):
+        self.capture, self.requests, self.names = capture, requests, names
+        self.bit_true, self.block_size = bit_true, block_size
+        fs = capture.sample_rate
+        centre = capture.center_frequency or 0.0
+        if bit_true:
+            self.runners = [_integer_chain(r, capture) for r in requests]
+        else:
+            # channels sharing a first stage share its matrix product
+            from ..engines.streaming import SharedFrontBank
+
+            self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs)
+        n_total = capture.num_samples
+        n_blocks = max(1, -(-n_total // block_size))
+        self.stride = max(1, -(-n_blocks * block_size // OVERVIEW_SAMPLES))
+        self.overview = WelchAccumulator(fs=fs, nperseg=4096, center_frequency=centre) if spectra else None
+        self.out_spectra = []
+        for r in requests:
+            n_out = int(n_total * r.plan.output_rate / fs)
+            nper = 1 << max(4, min(12, int(math.log2(max(n_out // 8, 16)))))
+            ok = spectra and n_out >= nper
+            self.out_spectra.append(
+                WelchAccumulator(fs=r.plan.output_rate, nperseg=nper, center_frequency=centre + r.offset) if ok else None
+            )
+        self.power = [0.0] * len(requests)
+        self.count = [0] * len(requests)
+        self.writers = []
+
+    def _outputs(self, i, block):
+        """Every channel's output for one input block (complex64, full-scale units)."""
+        if not self.bit_true:
+            if self.overview is not None and i % self.stride == 0:
+                self.overview.update(block)
+            return self.bank.process(block)
+        scale_in = 2.0 ** (self.capture.datatype.bits - 1)
+        raw = block.astype(np.int64)
+        if self.capture.datatype.kind == "u":
+            raw = raw - int(scale_in)
+        if self.overview is not None and i % self.stride == 0:
+            self.overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
+        outs = []
+        for runner in self.runners:
+            y = runner.process(raw)
+            outs.append((y[:, 0] + 1j * y[:, 1]).astype(np.complex64) * np.float32(runner.output_scale))
+        return outs
+
+    def run(self, out_dir, files, *, output_format, nonfinite, progress):
+        """Stream the capture into one writer per channel (left uncommitted in ``files``)."""
+        from ..io.sigmf_writer import SigmfWriter
+
+        cap = self.capture
+        centre = cap.center_frequency
+        bar = ProgressBar(cap.num_samples, enabled=None if progress else False, label="extract")
+        with contextlib.ExitStack() as stack:
+            for r, name in zip(self.requests, self.names):
+                meta_global = {
+                    "core:description": f"channel {name} extracted by channelizer",
+                    "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
+                    "channelizer:channel": name,
+                    "channelizer:plan_sha256": r.plan_id,
+                    "channelizer:plan_source": os.path.basename(r.plan_source) if r.plan_source else "",
+                    "channelizer:source_capture": os.path.basename(cap.path),
+                    "channelizer:offset_hz": float(r.offset),
+                    "channelizer:bit_true": bool(self.bit_true),
+                }
+                w = SigmfWriter(
+                    os.path.join(out_dir, name),
+                    datatype=output_format,
+                    fs=r.plan.output_rate,
+                    center_frequency=None if centre is None else centre + r.offset,
+                    global_extra=meta_global,
+                    fileset=files,
+                )
+                self.writers.append(stack.enter_context(w))
+            if self.bit_true:
+                blocks = cap.raw_blocks(self.block_size)
+            else:
+                blocks = cap.blocks(self.block_size, nonfinite=nonfinite)
+            done = 0
+            for i, block in enumerate(blocks):
+                for k, y in enumerate(self._outputs(i, block)):
+                    if y.size:
+                        self.writers[k].write(y)
+                        self.power[k] += float(np.vdot(y, y).real)
+                        self.count[k] += y.size
+                        if self.out_spectra[k] is not None:
+                            self.out_spectra[k].update(y)
+                done += block.shape[0]
+                bar.update(done)
+            bar.close()
+
+    def result(self, seconds):
+        cap = self.capture
+        fs, centre = cap.sample_rate, cap.center_frequency
+        results = []
+        for k, (r, name, w) in enumerate(zip(self.requests, self.names, self.writers)):
+            spec = self.out_spectra[k]
+            results.append(
+                ChannelResult(
+                    name=name,
+                    offset=float(r.offset),
+                    center_frequency=None if centre is None else float(centre + r.offset),
+                    output_rate=float(r.plan.output_rate),
+                    samples=int(self.count[k]),
+                    mean_power_dbfs=_dbfs(self.power[k] / self.count[k]) if self.count[k] else -math.inf,
+                    group_delay_output_samples=chain_delay_output_samples(r.plan.stages, fs=fs),
+                    plan_id=r.plan_id,
+                    files=[os.path.basename(w.data_path), os.path.basename(w.meta_path)],
+                    clipped=int(w.clipped),
+                    spectrum=spec.result() if spec is not None and spec.segments else None,
+                )
+            )
+        ov = self.overview.result() if self.overview is not None and self.overview.segments else None
+        return ExtractResult(capture=cap, channels=results, input_samples=cap.num_samples, seconds=seconds, overview=ov)
+
+
+def write_summary(result, out_dir, *, extra=None, fileset=None):
+    """Write ``summary.json`` (via a temporary name, or into ``fileset``) and return its path."""
+    cap = result.capture
+    doc = {
+        "capture": os.path.basename(cap.path),
+        "sample_rate": cap.sample_rate,
+        "center_frequency": cap.center_frequency,
+        "input_samples": result.input_samples,
+        "seconds": round(result.seconds, 3),
+        "channels": [
+            {
+                "name": c.name,
+                "center_frequency": c.center_frequency,
+                "offset_hz": c.offset,
+                "output_rate": c.output_rate,
+                "samples": c.samples,
+                "mean_power_dbfs": None if not math.isfinite(c.mean_power_dbfs) else round(c.mean_power_dbfs, 3),
+                "group_delay_output_samples": round(c.group_delay_output_samples, 6),
+                "plan_sha256": c.plan_id,
+                "files": c.files,
+                "clipped_samples": c.clipped,
+                "alias_audit": c.alias_audit,
+            }
+            for c in result.channels
+        ],
+    }
+    if extra:
+        doc.update(extra)
+    path = os.path.join(out_dir, "summary.json")
+    text = json.dumps(doc, indent=2) + "\n"
+    if fileset is not None:
+        fileset.write_text(path, text)
+    else:
+        write_text_atomic(path, text)
+    result.summary_path = path
+    return path
