@@ -207,7 +207,8 @@ def _register_extract(sub):
 def _cmd_survey(args):
     from .io.atomic import write_text_atomic
     from .io.channels import dump_channel_list
-    from .checks.survey import format_survey, plot_survey, survey_capture
+    from .checks.survey import format_survey, survey_capture
+    from .views.survey_plot import plot_survey
 
     capture = _open_capture(args)
     for path in (args.plot, args.channels_out):
@@ -271,7 +272,8 @@ def _register_demo(sub):
 
 def _cmd_verify(args):
     from .io.atomic import write_text_atomic
-    from .checks.verify import plot_verification, verify_plan
+    from .checks.verify import verify_plan
+    from .views.verify_plot import plot_verification
 
     plan = read_plan(args.plan)
     for path in (args.plot, args.json):
@@ -302,7 +304,9 @@ def _cmd_bench(args):
     import json
 
     from .io.atomic import write_text_atomic
-    from .bench.measure import format_report, format_soak_report, run_benchmark, run_soak, time_planner
+    from .bench.measure import run_benchmark, run_soak
+    from .bench.planner_timing import time_planner
+    from .bench.report import format_report, format_soak_report
 
     if args.json:
         _check_output_path(args.json)

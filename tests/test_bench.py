@@ -22,20 +22,11 @@ import scipy
 import scipy.signal
 import sigmf
 
-from channelizer.bench.measure import (
-    BENCH_SPEC,
-    MAX_CHANNELS,
-    SAMPLE_RATE,
-    BenchReport,
-    SoakReport,
-    _write_capture,
-    channel_offsets,
-    format_report,
-    format_soak_report,
-    reference_filter,
-    run_benchmark,
-    run_soak,
-)
+from channelizer.bench.measure import BENCH_SPEC, MAX_CHANNELS, SAMPLE_RATE, _write_capture, channel_offsets, run_benchmark, run_soak
+
+from channelizer.bench.reference import reference_filter
+
+from channelizer.bench.report import BenchReport, SoakReport, format_report, format_soak_report
 from channelizer.io.captures import open_capture
 from channelizer.errors import ChannelizerError
 

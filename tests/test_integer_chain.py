@@ -9,7 +9,8 @@ from channelizer.errors import ChannelizerError
 from channelizer.dsp.fixedpoint import IntegerCic
 from channelizer.planning.quantize import quantize_taps
 from channelizer.planning.hogenauer import cic_registers
-from channelizer.engines.integer_chain import BitWidthTable, IntegerChain
+from channelizer.engines.integer_chain import IntegerChain
+from channelizer.engines.bit_widths import BitWidthTable
 from channelizer.planning.plan import PLAN_FORMAT, Plan
 from channelizer.planning.planner import plan_chain
 from channelizer.planning.spec import ChainSpec

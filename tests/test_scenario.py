@@ -12,13 +12,8 @@ import pytest
 from scipy import signal
 
 from channelizer.errors import ChannelizerError
-from channelizer.demo.job.scene import (
-    _rrc_pulse,
-    apply_iq_imbalance,
-    image_rejection_db,
-    interferer_offset_for,
-    make_scenario,
-)
+from channelizer.demo.scene import interferer_offset_for, make_scenario
+from channelizer.demo.signals import _rrc_pulse, apply_iq_imbalance, image_rejection_db
 
 NPERSEG = 1 << 14  # 146 Hz bins at 2.4 Msps: ~75 bins across an 11 kHz channel
 

@@ -6,18 +6,10 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from channelizer import spectrum
+from channelizer.dsp import spectrum
 from channelizer.errors import ChannelizerError
-from channelizer.dsp.spectrum import (
-    DetectedSignal,
-    Psd,
-    SpectrogramAccumulator,
-    WelchAccumulator,
-    channel_list_from_signals,
-    detect_signals,
-    estimate_noise_floor,
-    tone_power_dbfs,
-)
+from channelizer.dsp.spectrum import Psd, SpectrogramAccumulator, WelchAccumulator, tone_power_dbfs
+from channelizer.dsp.detection import DetectedSignal, channel_list_from_signals, detect_signals, estimate_noise_floor
 
 
 @pytest.fixture

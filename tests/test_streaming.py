@@ -11,16 +11,9 @@ import scipy.signal
 
 from channelizer.errors import ChannelizerError
 from channelizer.planning.stages import CicStage, FirStage, ResamplerStage, cic_taps
-from channelizer.engines.streaming import (
-    Chain,
-    ChannelBank,
-    FirDecimator,
-    HalfbandDecimator,
-    Mixer,
-    MixingFirDecimator,
-    RationalResampler,
-    build_chain,
-)
+from channelizer.engines.streaming import FirDecimator, HalfbandDecimator, Mixer, MixingFirDecimator
+from channelizer.engines.resampler import RationalResampler
+from channelizer.engines.float_chain import Chain, ChannelBank, build_chain
 
 FS = 61_440_000  # Hz, an integer so that reference phases can be computed with integers
 
@@ -493,7 +486,7 @@ def test_shared_front_bank_equals_separate_chains():
     # scipy.signal.upfirdn above), whatever the block split
     from channelizer.planning.planner import plan_chain
     from channelizer.planning.spec import ChainSpec
-    from channelizer.engines.streaming import SharedFrontBank, build_chain
+    from channelizer.engines.float_chain import SharedFrontBank, build_chain
 
     fs = 2.4e6
     p1 = plan_chain(ChainSpec(input_rate=fs, bandwidth=12.5e3, output_rate=48e3)).plan

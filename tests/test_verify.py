@@ -14,7 +14,8 @@ from channelizer.errors import ChannelizerError
 from channelizer.planning.plan import PLAN_FORMAT, Plan
 from channelizer.planning.response import alias_intervals, composite_response, fold
 from channelizer.planning.stages import CicStage, ResamplerStage
-from channelizer.checks.verify import ToneMeasurement, Verification, plot_verification, verify_plan
+from channelizer.checks.verify import ToneMeasurement, Verification, verify_plan
+from channelizer.views.verify_plot import plot_verification
 
 PLANS = pathlib.Path(__file__).resolve().parent.parent / "plans"
 RELAY = "relay-voice-2m4-to-48k.yaml"

@@ -23,39 +23,30 @@ same machine, so the ratios say more than the absolute figures.
 subprocess and reports that subprocess's peak memory and the output lengths.
 """
 
-from dataclasses import asdict, dataclass, field
-import json
 import math
 import numbers
 import os
-import platform
 import shutil
-import subprocess
 import sys
 import tempfile
 import time
 
 import numpy as np
-import scipy
-import scipy.signal
 
 from ..io.captures import open_capture
 from ..errors import ChannelizerError
-from ..planning.plan import Plan
 from ..planning.planner import plan_chain
 from ..run.processor import ChannelRequest, extract_channels, plan_identity
 from ..io.sigmf_writer import SigmfWriter
 from ..planning.spec import ChainSpec
 from ..planning.stages import CicStage, ResamplerStage
+from .report import BenchReport, SoakReport
+from .memory import _environment, _measure_in_subprocess
+from .reference import _reference_pass, reference_filter
 
 __all__ = [
     "BENCH_SPEC",
-    "BenchReport",
-    "SoakReport",
     "channel_offsets",
-    "format_report",
-    "format_soak_report",
-    "reference_filter",
     "run_benchmark",
     "run_soak",
 ]
@@ -81,118 +72,6 @@ _MB = 1e6
 
 
 # ----------------------------------------------------------------------------- reports
-class _JsonReport:
-    """JSON round trip for the report dataclasses (plain JSON types in every field)."""
-
-    def to_dict(self):
-        return asdict(self)
-
-    def to_json(self):
-        """The report as JSON text (indented, ends with a newline)."""
-        return json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
-
-    @classmethod
-    def from_dict(cls, data):
-        return cls(**data)
-
-    @classmethod
-    def from_json(cls, text):
-        return cls.from_dict(json.loads(text))
-
-
-@dataclass
-class BenchReport(_JsonReport):
-    """Figures of one :func:`run_benchmark` run (plain JSON types throughout).
-
-    Attributes
-    ----------
-    capture : dict
-        ``sample_rate``, ``seconds``, ``samples``, ``datatype``, ``block_size``.
-    plan : dict
-        Layout, stages, output rate, decimation, predicted figures, identity.
-    reference : dict
-        The reference filter: taps, Kaiser beta, measured rejection and ripple.
-    timings : dict
-        Per measurement (``reference``, ``one_channel``, ``many_channels``):
-        ``runs_s``, ``best_s``, ``input_msps``, ``realtime_factor``.
-    memory : dict
-        Per measurement: ``peak_rss_mb``, ``baseline_rss_mb``, ``mapped_file_mb``,
-        ``peak_heap_mb`` (each from its own subprocess), ``seconds``.
-    ratios : dict
-        ``speedup_vs_reference``, ``many_over_one_time`` and the memory ratios
-        against the reference.
-    targets : dict
-        Per target: ``value``, ``limit``, ``sense`` (``'>='`` or ``'<='``), ``met``.
-    checks : dict
-        Output lengths against ``floor(N L / M)`` per stage, and the power of the
-        one-channel output against the reference's.
-    environment : dict
-        numpy, scipy, Python, platform, ``os.cpu_count()``.
-    """
-
-    capture: dict
-    channels: int
-    repeats: int
-    plan: dict
-    reference: dict
-    timings: dict
-    memory: dict
-    ratios: dict
-    targets: dict
-    checks: dict
-    environment: dict
-
-    @property
-    def passed(self):
-        """True when every target is met and every output length is right."""
-        return all(t["met"] for t in self.targets.values()) and self.checks["lengths_ok"]
-
-
-@dataclass
-class SoakReport(_JsonReport):
-    """Figures of one :func:`run_soak` run.
-
-    Attributes
-    ----------
-    gigabytes : float
-        Size of the capture written, in 10^9 bytes.
-    samples : int
-        Complex samples in it.
-    channels : int
-    plan : dict
-    seconds, input_msps, realtime_factor : float
-        Extraction time in the subprocess and the input rate it reached.
-    memory : dict
-        ``peak_rss_mb`` (``VmHWM``), ``baseline_rss_mb`` (after imports),
-        ``mapped_file_mb`` (pages of the capture's memory map resident at the end),
-        ``peak_heap_mb`` (``tracemalloc``), ``peak_rss_less_mapped_mb``.
-    targets : dict
-        As in :class:`BenchReport`.
-    outputs : list of dict
-        Per channel: ``name``, ``expected``, ``written``.
-    lengths_ok : bool
-    generation_seconds : float
-    environment : dict
-    """
-
-    gigabytes: float
-    samples: int
-    channels: int
-    plan: dict
-    seconds: float
-    input_msps: float
-    realtime_factor: float
-    memory: dict
-    targets: dict
-    outputs: list
-    lengths_ok: bool
-    generation_seconds: float
-    environment: dict = field(default_factory=dict)
-
-    @property
-    def passed(self):
-        """True when every target is met and every output length is right."""
-        return self.lengths_ok and all(t["met"] for t in self.targets.values())
 
 
 # ----------------------------------------------------------------------------- checks of arguments
@@ -260,74 +139,6 @@ def _say(progress, text):
 
 
 # ----------------------------------------------------------------------------- reference filter
-def reference_filter(spec, *, fs):
-    """Single-stage FIR for ``scipy.signal.resample_poly`` meeting ``spec``'s rejection.
-
-    Kaiser window design: order and beta from ``scipy.signal.kaiserord`` for the
-    rejection target and the transition band from ``bandwidth / 2`` to
-    ``output_rate - bandwidth / 2`` (the first frequency that folds onto the
-    passband), cutoff in its middle (``output_rate / 2``), at ``fs`` (the
-    up-sampled rate; the integer decimations used here need no up-sampling).
-    Kaiser's formula is an estimate, so the design is checked with
-    ``scipy.signal.freqz`` and the target raised in 0.25 dB steps until the
-    stopband meets it.
-
-    Parameters
-    ----------
-    spec : ChainSpec
-    fs : float
-        Rate the filter runs at, Hz.
-
-    Returns
-    -------
-    dict
-        ``taps`` (float64 array), ``numtaps``, ``beta``, ``rejection_db`` and
-        ``ripple_db`` as measured.
-
-    References
-    ----------
-    J. F. Kaiser, "Nonrecursive digital filter design using the I0-sinh window
-    function", Proc. IEEE ISCAS, 1974 (from memory); A. V. Oppenheim and
-    R. W. Schafer, *Discrete-Time Signal Processing*, 3rd ed., 2010, sec. 7.6
-    (the method ``scipy.signal.kaiserord`` follows).
-    """
-    fp = spec.bandwidth / 2.0
-    fstop = spec.output_rate - fp
-    width = (fstop - fp) / (fs / 2.0)
-    cutoff = spec.output_rate / 2.0
-    atten = float(spec.rejection_db)
-    for _ in range(40):
-        numtaps, beta = scipy.signal.kaiserord(atten, width)
-        numtaps |= 1  # odd: a whole-sample delay
-        taps = scipy.signal.firwin(numtaps, cutoff, window=("kaiser", beta), fs=fs)
-        rej, rip = _measure_lowpass(taps, fp, fstop, fs=fs)
-        if rej >= spec.rejection_db and rip <= spec.ripple_db:
-            break
-        atten += 0.25
-    else:  # pragma: no cover - kaiserord is never that far off
-        raise ChannelizerError(f"no Kaiser design reaches {spec.rejection_db:g} dB for the reference")
-    return {"taps": taps, "numtaps": int(numtaps), "beta": float(beta), "rejection_db": rej, "ripple_db": rip}
-
-
-def _measure_lowpass(taps, fp, fstop, *, fs):
-    n = 1 << max(16, int(math.ceil(math.log2(len(taps) * 64))))
-    w, h = scipy.signal.freqz(taps, worN=n, fs=fs)
-    mag = np.abs(h)
-    rej = -20.0 * math.log10(max(float(mag[w >= fstop].max()), 1e-300))
-    pb = mag[w <= fp]
-    rip = 20.0 * math.log10(float(pb.max()) / float(pb.min()))
-    return rej, rip
-
-
-def _reference_pass(capture, taps32, down, block):
-    """resample_poly on each block (no state across blocks); returns (samples out, mean power)."""
-    n_out = 0
-    power = 0.0
-    for x in capture.blocks(block):
-        y = scipy.signal.resample_poly(x, 1, down, window=taps32)
-        n_out += y.size
-        power += float(np.vdot(y, y).real)
-    return n_out, power / max(n_out, 1)
 
 
 # ----------------------------------------------------------------------------- plan summary
@@ -371,135 +182,7 @@ def _expected_outputs(plan, n):
     return n
 
 
-def _environment():
-    """Versions and machine; the load average (taken at the end) says how busy the machine was."""
-    try:
-        load = [round(v, 2) for v in os.getloadavg()]
-    except (AttributeError, OSError):
-        load = None
-    return {
-        "numpy": np.__version__,
-        "scipy": scipy.__version__,
-        "python": platform.python_version(),
-        "platform": platform.platform(),
-        "machine": platform.machine(),
-        "cpu_count": os.cpu_count(),
-        "load_average": load,
-        "blas_threads_env": {k: os.environ[k] for k in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
-                             if k in os.environ},
-    }
-
-
 # ----------------------------------------------------------------------------- subprocess measurements
-def _rss_kb(ru_maxrss):
-    return ru_maxrss / 1024.0 if sys.platform == "darwin" else float(ru_maxrss)
-
-
-def _status_kb(key):
-    """A ``kB`` field of /proc/self/status (Linux), or None."""
-    try:
-        with open("/proc/self/status") as fh:
-            for line in fh:
-                if line.startswith(key + ":"):
-                    return float(line.split()[1])
-    except OSError:
-        pass
-    return None
-
-
-def _mapped_kb(path):
-    """Resident kB of this process's memory maps of file ``path`` (Linux ``smaps``), or None."""
-    target = os.path.realpath(path)
-    total = 0.0
-    inside = False
-    try:
-        with open("/proc/self/smaps") as fh:
-            for line in fh:
-                head = line.split(None, 5)
-                if len(head) >= 5 and "-" in head[0] and not head[0].endswith(":"):
-                    inside = len(head) == 6 and head[5].rstrip("\n") == target
-                elif inside and head and head[0] == "Rss:":
-                    total += float(head[1])
-    except OSError:
-        return None
-    return total
-
-
-def _peak_rss_kb(resource):
-    """Peak resident set of this process, kB.
-
-    ``VmHWM`` where Linux gives it: ``ru_maxrss`` of a freshly started child
-    also counts the parent's resident set at the fork (Linux keeps the larger
-    of the old and new address spaces' peaks across ``exec``), so it would
-    charge the benchmark's own memory to the measurement.
-    """
-    hwm = _status_kb("VmHWM")
-    return hwm if hwm is not None else _rss_kb(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
-
-
-def _child_main():
-    """Entry of a measurement subprocess: a JSON job on stdin, a JSON result on stdout."""
-    import resource
-    import tracemalloc
-
-    job = json.loads(sys.stdin.read())
-    capture = open_capture(job["capture"])
-    with open(job["plan"], "rb") as fh:
-        data = fh.read()
-    plan = Plan.from_yaml(data, source=job["plan"])
-    taps = np.load(job["taps"]).astype(np.float32) if job["mode"] == "reference" else None
-    baseline = _peak_rss_kb(resource)
-    tracemalloc.start()
-    t0 = time.perf_counter()
-    if job["mode"] == "reference":
-        n_out, _ = _reference_pass(capture, taps, int(round(plan.total_decimation)), job["block"])
-        samples = [n_out]
-    else:
-        reqs = [
-            ChannelRequest(f"ch{i}", off, plan, plan_identity(data), job["plan"])
-            for i, off in enumerate(job["offsets"])
-        ]
-        res = extract_channels(
-            capture, reqs, job["out_dir"], block_size=job["block"], spectra=False, progress=job["progress"]
-        )
-        samples = [c.samples for c in res.channels]
-    seconds = time.perf_counter() - t0
-    _, heap_peak = tracemalloc.get_traced_memory()
-    tracemalloc.stop()
-    peak = _peak_rss_kb(resource)
-    mapped = _mapped_kb(capture.data_path)
-    out = {
-        "seconds": seconds,
-        "samples": samples,
-        "peak_rss_mb": peak * 1024 / _MB,
-        "baseline_rss_mb": baseline * 1024 / _MB,
-        "mapped_file_mb": None if mapped is None else mapped * 1024 / _MB,
-        "peak_heap_mb": heap_peak / _MB,
-    }
-    sys.stdout.write(json.dumps(out) + "\n")
-    return 0
-
-
-def _measure_in_subprocess(job, *, progress=False):
-    """Run one measurement in a fresh interpreter; returns its result dict."""
-    package_parent = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    env = dict(os.environ)
-    env["PYTHONPATH"] = package_parent + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
-    code = "import sys; from channelizer.bench import _child_main; sys.exit(_child_main())"
-    proc = subprocess.run(
-        [sys.executable, "-c", code],
-        input=json.dumps(job),
-        stdout=subprocess.PIPE,
-        stderr=None if progress else subprocess.PIPE,
-        text=True,
-        env=env,
-        check=False,
-    )
-    if proc.returncode != 0:
-        tail = (proc.stderr or "").strip().splitlines()[-5:]
-        raise RuntimeError(f"measurement subprocess ({job['mode']}) failed with status {proc.returncode}: "
-                           + " | ".join(tail))
-    return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
 # ----------------------------------------------------------------------------- benchmark
@@ -786,130 +469,5 @@ def run_soak(*, gigabytes=4.0, channels=4, workdir=None, progress=True):
 
 
 # ----------------------------------------------------------------------------- text
-def _mark(t):
-    return "met" if t["met"] else "MISSED"
 
 
-def format_report(report):
-    """The benchmark report as readable text."""
-    c = report.capture
-    p = report.plan
-    r = report.reference
-    lines = [
-        f"benchmark: {c['seconds']:.3f} s of synthetic {c['datatype']} at {c['sample_rate'] / 1e6:g} Msps "
-        f"({c['samples']:,} samples, blocks of {c['block_size']:,}), best of {report.repeats}",
-        f"chain: {p['layout']} -> {p['output_rate'] / 1e3:g} kHz; predicted "
-        f"{p['predicted'].get('alias_rejection_db', float('nan')):.1f} dB rejection, "
-        f"{p['predicted'].get('passband_ripple_db', float('nan')):.3f} dB ripple",
-        f"reference: resample_poly 1/{r['decimation']}, Kaiser FIR {r['numtaps']} taps (beta {r['beta']:.3f}), "
-        f"measured {r['rejection_db']:.1f} dB rejection, {r['ripple_db']:.2g} dB ripple",
-        "",
-        f"{'run':<24}{'best s':>9}{'Msps':>9}{'x real time':>13}{'peak RSS MB':>13}{'heap MB':>10}",
-    ]
-    names = {"reference": "reference", "one_channel": "one channel", "many_channels": f"{report.channels} channels"}
-    for key, label in names.items():
-        t = report.timings[key]
-        m = report.memory.get(key, {})
-        rss = m.get("peak_rss_mb")
-        heap = m.get("peak_heap_mb")
-        lines.append(
-            f"{label:<24}{t['best_s']:>9.3f}{t['input_msps']:>9.1f}{t['realtime_factor']:>13.2f}"
-            f"{rss if rss is not None else float('nan'):>13.1f}{heap if heap is not None else float('nan'):>10.1f}"
-        )
-    lines += ["", "targets:"]
-    labels = {
-        "speedup_vs_reference": "one channel speed / reference speed",
-        "many_over_one_time": f"{report.channels} channels time / one channel time",
-        "one_channel_realtime": "one channel speed / real time",
-    }
-    for key, t in report.targets.items():
-        lines.append(f"  {labels.get(key, key):<44}{t['value']:>9.2f}  {t['sense']} {t['limit']:g}  {_mark(t)}")
-    ch = report.checks
-    lines += [
-        "",
-        f"output lengths: {ch['expected_outputs']:,} expected per channel, "
-        + ("all match" if ch["lengths_ok"] else "MISMATCH"),
-        f"one channel power {ch['one_channel_power_dbfs']:.2f} dBFS, reference {ch['reference_power_dbfs']:.2f} dBFS",
-        "memory vs reference (peak RSS): one channel "
-        f"{_fmt_ratio(report.ratios.get('one_channel_peak_rss_vs_reference'))}, {report.channels} channels "
-        f"{_fmt_ratio(report.ratios.get('many_channels_peak_rss_vs_reference'))}; "
-        "(heap): one channel "
-        f"{_fmt_ratio(report.ratios.get('one_channel_peak_heap_vs_reference'))}, {report.channels} channels "
-        f"{_fmt_ratio(report.ratios.get('many_channels_peak_heap_vs_reference'))}",
-        _fmt_env(report.environment),
-    ]
-    return "\n".join(lines)
-
-
-def _fmt_ratio(v):
-    return "n/a" if v is None else f"{v:.2f}x"
-
-
-def _fmt_env(env):
-    load = env.get("load_average")
-    busy = f", load average {load[0]:g}" if load else ""
-    return (f"machine: {env['cpu_count']} CPUs{busy}, {env['platform']}; numpy {env['numpy']}, scipy {env['scipy']}, "
-            f"Python {env['python']}")
-
-
-def format_soak_report(report):
-    """The soak report as readable text."""
-    m = report.memory
-    lines = [
-        f"soak: {report.gigabytes:.2f} GB ci16_le ({report.samples:,} samples), {report.channels} channels, "
-        f"chain {report.plan['layout']}",
-        f"extract: {report.seconds:.1f} s, {report.input_msps:.1f} Msps ({report.realtime_factor:.2f} x real time); "
-        f"capture written in {report.generation_seconds:.1f} s",
-        f"memory: peak RSS {m['peak_rss_mb']:.1f} MB (after imports {m['baseline_rss_mb']:.1f} MB), "
-        f"capture pages mapped {_mb(m.get('mapped_file_mb'))}, heap peak {m['peak_heap_mb']:.1f} MB",
-    ]
-    for key, t in report.targets.items():
-        lines.append(f"  {key.replace('_', ' '):<32}{t['value']:>10.1f}  {t['sense']} {t['limit']:g}  {_mark(t)}")
-    lines.append(
-        "output lengths: "
-        + ", ".join(f"{o['name']} {o['written']:,}/{o['expected']:,}" for o in report.outputs)
-        + ("" if report.lengths_ok else "  MISMATCH")
-    )
-    lines.append(_fmt_env(report.environment))
-    return "\n".join(lines)
-
-
-def _mb(v):
-    return "n/a" if v is None else f"{v:.1f} MB"
-
-
-#: Typical planner requests, timed by :func:`time_planner` (target: each under 2 s).
-PLANNER_SPECS = (
-    dict(input_rate=61.44e6, bandwidth=200e3),
-    dict(input_rate=2.4e6, bandwidth=12.5e3, output_rate=48e3),
-    dict(input_rate=61.44e6, bandwidth=20e3, output_rate=25e3),
-    dict(input_rate=100e6, bandwidth=1e6, objective="hardware"),
-    dict(input_rate=2.4e6, bandwidth=11e3, output_rate=48e3, stopband_edge=7e3),
-)
-PLANNER_TARGET_S = 2.0
-
-
-def time_planner(specs=PLANNER_SPECS, *, repeats=3):
-    """Seconds :func:`channelizer.planner.plan_chain` takes per spec, design caches cleared.
-
-    Returns a dict: ``specs`` (each with ``seconds``, the best of ``repeats``, and the
-    chosen layout), ``worst_s``, ``target_s`` and ``met``.
-    """
-    from ..planning import design
-    from ..planning.planner import plan_chain
-    from ..planning.spec import ChainSpec
-
-    rows = []
-    for kw in specs:
-        best = math.inf
-        layout = ""
-        for _ in range(repeats):
-            for fn in (design.design_decimator, design.design_halfband, design.design_compensator):
-                fn.cache_clear()
-            t = time.perf_counter()
-            res = plan_chain(ChainSpec(**kw))
-            best = min(best, time.perf_counter() - t)
-            layout = res.chosen.layout
-        rows.append({"spec": {k: v for k, v in kw.items()}, "seconds": round(best, 4), "layout": layout})
-    worst = max(r["seconds"] for r in rows)
-    return {"specs": rows, "worst_s": worst, "target_s": PLANNER_TARGET_S, "met": worst < PLANNER_TARGET_S}

@@ -15,7 +15,7 @@ import math
 import numpy as np
 
 from ..planning.response import alias_intervals, composite_response, fold, image_step
-from ..dsp.spectrum import detect_signals, estimate_noise_floor
+from ..dsp.detection import detect_signals, estimate_noise_floor
 
 __all__ = ["audit_channel"]
 

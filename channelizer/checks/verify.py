@@ -63,24 +63,20 @@ import math
 import numbers
 
 import numpy as np
-import scipy.optimize
 
 from ..errors import ChannelizerError
 from ..planning.plan import Plan
-from ..planning.response import alias_intervals, composite_response, fold, predict, resampler_of
-from ..planning.stages import ResamplerStage, chain_rates
+from ..planning.response import fold, predict
+from ..planning.stages import chain_rates
+from .tones import _alias_tones, _db, _impulse_seconds, _noise_gain, _passband_tones, _path_gain, _resampler
 
-__all__ = ["ToneMeasurement", "Verification", "verify_plan", "plot_verification"]
+__all__ = ["ToneMeasurement", "Verification", "verify_plan"]
 
 DEFAULT_ALIAS_TONES = 200
-PASSBAND_GRID = 17
 FIT_SAMPLES = 256
 BIT_TRUE_FIT_SAMPLES = 512
 BIT_TRUE_AMPLITUDE = 0.5
-_COARSE_BUDGET = 200_000  # predicted-response points for ranking the alias bands
-_DENSE_POINTS = 513  # per selected band, for its worst frequency
 _FLOOR_MARGIN_DB = 6.0
-_GOLDEN = (math.sqrt(5.0) - 1.0) / 2.0
 #: Coherent rounding error of the complex64 chain relative to a unit tone (see the module notes).
 FLOAT_FLOOR_DB = -120.0
 
@@ -255,94 +251,6 @@ def _finite(obj):
 
 
 # ----------------------------------------------------------------------------- geometry
-def _resampler(stages, fs):
-    """(interpolation, input rate of the rational stage); (1, output rate) when there is none."""
-    res, rate = resampler_of(stages, fs=fs)
-    return (res.interpolation if res is not None else 1), rate
-
-
-def _path_gain(stages, f, *, fs, image, up):
-    """Complex gain of path ``image``: the composite response over the up-sampling factor."""
-    return composite_response(stages, f, fs=fs, image=image) / up
-
-
-def _impulse_seconds(stages, fs):
-    """Length of the chain's impulse response in seconds (every stage's taps at their own rate)."""
-    total = 0.0
-    for st, rate in zip(stages, chain_rates(stages, fs=fs)):
-        tap_rate = rate * st.interpolation if isinstance(st, ResamplerStage) else rate
-        total += (st.num_taps - 1) / tap_rate
-    return total
-
-
-def _db(x):
-    x = float(x)
-    return 20.0 * math.log10(x) if x > 0 else -math.inf
-
-
-def _passband_tones(stages, fs, bandwidth, up):
-    fp = bandwidth / 2.0
-    grid = np.linspace(-fp, fp, PASSBAND_GRID)
-    grid[PASSBAND_GRID // 2] = 0.0  # the reference tone, exactly
-    dense = np.linspace(-fp, fp, 4097)
-    mag = np.abs(_path_gain(stages, dense, fs=fs, image=0, up=up))
-    extra = [dense[int(np.argmax(mag))], dense[int(np.argmin(mag))]]
-    f = np.concatenate([grid, [x for x in extra if np.min(np.abs(grid - x)) > 1e-9 * max(fp, 1.0)]])
-    return [(float(x), 0, False) for x in f]
-
-
-def _alias_tones(stages, fs, bandwidth, up, budget):
-    """(frequency, image, is_band_worst) for the alias sweep and the number of bands tested."""
-    intervals = alias_intervals(stages, fs=fs, bandwidth=bandwidth)
-    if not intervals:
-        return [], 0, 0
-    n_int = len(intervals)
-    lo = np.array([iv[0] for iv in intervals])
-    hi = np.array([iv[1] for iv in intervals])
-    img = np.array([iv[2] for iv in intervals])
-    # rank the bands by their largest predicted gain on a coarse grid (edges included)
-    m = int(np.clip(_COARSE_BUDGET // n_int, 9, 129))
-    t = np.linspace(0.0, 1.0, m)
-    peak = np.empty(n_int)
-    for k in np.unique(img):
-        sel = np.flatnonzero(img == k)
-        f = lo[sel, None] + (hi[sel] - lo[sel])[:, None] * t[None, :]
-        peak[sel] = np.abs(_path_gain(stages, f, fs=fs, image=int(k), up=up)).max(axis=1)
-    n_sel = n_int if n_int <= budget // 2 else max(1, budget // 2)
-    order = np.argsort(-peak, kind="stable")[:n_sel]
-    tones = []
-    for i in order:
-        tones.append((_band_worst(stages, fs, up, lo[i], hi[i], int(img[i])), int(img[i]), True))
-    # the rest of the budget evenly inside the same bands, worst bands first; the
-    # grid of each band is shifted by a golden-ratio step so that the bands do not
-    # all land on the same output frequencies (a band's centre lands on 0 Hz)
-    rest = max(0, budget - n_sel)
-    per, extra = divmod(rest, n_sel)
-    for rank, i in enumerate(order):
-        count = per + (1 if rank < extra else 0)
-        if count:
-            u = ((rank + 1) * _GOLDEN) % 1.0
-            for x in lo[i] + (hi[i] - lo[i]) * (np.arange(count) + u) / count:
-                tones.append((float(x), int(img[i]), False))
-    return tones, n_int, n_sel
-
-
-def _band_worst(stages, fs, up, lo, hi, image):
-    """Frequency of the largest predicted gain in ``[lo, hi]``: dense argmax, then a bounded search."""
-    f = np.linspace(lo, hi, _DENSE_POINTS)
-    mag = np.abs(_path_gain(stages, f, fs=fs, image=image, up=up))
-    i = int(np.argmax(mag))
-    a, b = f[max(i - 1, 0)], f[min(i + 1, f.size - 1)]
-    if b > a:
-        res = scipy.optimize.minimize_scalar(
-            lambda x: -abs(_path_gain(stages, np.array([x]), fs=fs, image=image, up=up)[0]),
-            bounds=(a, b),
-            method="bounded",
-            options={"xatol": (hi - lo) * 1e-7},
-        )
-        if res.success and -res.fun > mag[i]:
-            return float(res.x)
-    return float(f[i])
 
 
 # ----------------------------------------------------------------------------- running tones
@@ -362,7 +270,7 @@ class _FloatRunner:
     lsb = 0.0
 
     def __init__(self, plan, amplitude):
-        from ..engines.streaming import build_chain
+        from ..engines.float_chain import build_chain
 
         self.amplitude = amplitude
         self._plan = plan
@@ -404,16 +312,6 @@ class _IntegerRunner:
         np.clip(x, -self._full, self._full - 1, out=x)
         y = np.asarray(self._chain.process(x))
         return (y[:, 0] + 1j * y[:, 1]) * self.lsb
-
-
-def _noise_gain(stages, fs, up):
-    """Output variance per unit of white input variance: the mean over the input band of ``sum_k |H_k / L|^2``."""
-    n = 1 << 16
-    f = (np.arange(n) / n - 0.5) * fs
-    total = 0.0
-    for k in range(up):
-        total += float(np.mean(np.abs(_path_gain(stages, f, fs=fs, image=k, up=up)) ** 2))
-    return total
 
 
 def _fit(y, freqs, *, fs_out, start, dc=False):
@@ -617,123 +515,3 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
     )
 
 
-def plot_verification(v, path, *, plan=None, title=None):
-    """Write the verification figure to ``path`` (PNG).
-
-    Panel (a): measured gains at the tones' input frequencies over the predicted
-    composite response across the input band.  Panel (b): the alias tones at
-    their landing frequencies, the tested bands' predicted responses folded
-    onto the output band, and the rejection target.  Panel (c): the passband,
-    predicted against measured.
-
-    Parameters
-    ----------
-    v : Verification
-    path : str
-        PNG file, written via a temporary name.
-    plan : channelizer.plan.Plan, optional
-        Whose predicted response to draw; by default the stages the
-        verification predicted from (``v.stages``).
-    """
-    from ..views.plots import _db as _db_curve, _hz_axis, new_figure, save_figure
-
-    fig, axes = new_figure(3, 1, size=(11, 11))
-    ax, bx, cx = axes[0, 0], axes[1, 0], axes[2, 0]
-    fs, fs_out, fp = v.input_rate, v.output_rate, v.bandwidth / 2.0
-    pb, al = v.passband, v.aliases
-    dc = next((t.measured_db for t in pb if t.input_hz == 0.0), 0.0)
-    target = dc - v.spec_rejection_db
-    deep = min([t.predicted_db for t in al if math.isfinite(t.predicted_db)] + [target - 40.0])
-    ylo = max(min(deep, target - 40.0), -200.0) - 10.0
-
-    # the input-band view spans the tested tones (all of the band when they reach its edges)
-    reach = max([abs(t.input_hz) for t in v.tones] + [4.0 * fp])
-    span = min(fs / 2.0, 1.1 * reach)
-    stages = tuple(plan.stages) if plan is not None else tuple(v.stages)
-    if stages:
-        up, fs_r = _resampler(stages, fs)
-        f = np.linspace(-span, span, 8001)
-        f = np.unique(np.concatenate([f, [t.input_hz for t in v.tones]]))
-        ax.plot(f, _db_curve(_path_gain(stages, f, fs=fs, image=0, up=up)), color="black", lw=0.9,
-                label="predicted (direct path)")
-        for k in sorted({t.image for t in al} - {0}):
-            ax.plot(f, _db_curve(_path_gain(stages, f, fs=fs, image=k, up=up)), lw=0.6, alpha=0.6,
-                    label=f"predicted (image path {k})")
-        # folded curves of the tested bands
-        first = True
-        for k, lo, hi in _tested_bands(stages, fs, v.bandwidth, al):
-            x = np.linspace(lo, hi, 96)
-            land = fold(x + k * fs_r, fs_out) if up > 1 else fold(x, fs_out)
-            jump = np.abs(np.diff(land, prepend=land[:1])) > fs_out / 2
-            land = np.where(jump, np.nan, land)
-            bx.plot(land, _db_curve(_path_gain(stages, x, fs=fs, image=k, up=up)), color="tab:blue", lw=0.6,
-                    alpha=0.4, label="predicted, tested bands folded" if first else None)
-            first = False
-        xp = np.linspace(-fp, fp, 801)
-        hp = _db_curve(_path_gain(stages, xp, fs=fs, image=0, up=up))
-        bx.plot(xp, hp, color="black", lw=1.2, label="predicted channel")
-        cx.plot(xp, hp, color="black", lw=1.2, label="predicted")
-    for axis, xs in ((ax, "input_hz"), (bx, "landing_hz")):
-        axis.plot([getattr(t, xs) for t in pb], [t.measured_db for t in pb], "o", ms=4, color="tab:green",
-                  label="measured, passband")
-        above = [t for t in al if t.measured_db > t.floor_db + _FLOOR_MARGIN_DB]
-        floor = [t for t in al if t.measured_db <= t.floor_db + _FLOOR_MARGIN_DB]
-        axis.plot([getattr(t, xs) for t in above], [t.measured_db for t in above], "x", ms=4, color="tab:red",
-                  label="measured, alias")
-        if floor:
-            axis.plot([getattr(t, xs) for t in floor], [max(t.measured_db, ylo) for t in floor], "x", ms=3,
-                      color="0.55", label="measured, alias at the measurement floor")
-        axis.axhline(target, color="tab:red", ls="--", lw=1, label=f"target: {v.spec_rejection_db:g} dB below 0 Hz")
-        axis.set_ylim(ylo, max(5.0, dc + 5.0))
-        axis.grid(alpha=0.3)
-        axis.set_ylabel("gain (dB)")
-        _hz_axis(axis)
-    if math.isfinite(v.worst_alias_hz):
-        w = max(al, key=lambda t: t.measured_db)
-        ax.annotate(f"worst {v.measured_rejection_db:.1f} dB", (w.input_hz, w.measured_db), xytext=(8, 8),
-                    textcoords="offset points", fontsize=8, color="tab:red")
-    ax.set_xlim(-span, span)
-    ax.set_xlabel("input frequency offset from channel centre" + ("" if span >= fs / 2.0 else " (tested span)"))
-    ax.legend(loc="lower left", fontsize=7, ncol=2)
-    mode = "bit-true" if v.bit_true else "float"
-    ax.set_title(title or f"(a) {mode} tone sweep over the input band: {len(v.tones)} tones")
-    bx.set_xlim(-fp * 1.05, fp * 1.05)
-    bx.axvspan(-fp, fp, color="tab:green", alpha=0.06)
-    bx.set_xlabel("output frequency (offset from channel centre)")
-    bx.legend(loc="lower left", fontsize=7)
-    bx.set_title(f"(b) folded view: measured rejection {v.measured_rejection_db:.2f} dB, "
-                 f"predicted {v.predicted_rejection_db:.2f} dB")
-    cx.plot([t.input_hz for t in pb], [t.measured_db for t in pb], "o", ms=5, color="tab:green", label="measured")
-    cx.set_xlim(-fp * 1.05, fp * 1.05)
-    pm = [t.measured_db for t in pb]
-    mid = (max(pm) + min(pm)) / 2.0
-    half = max(v.spec_ripple_db, max(pm) - min(pm)) * 0.75 + 0.01
-    cx.set_ylim(mid - half, mid + half)
-    cx.axhspan(max(pm) - v.spec_ripple_db, max(pm), color="tab:green", alpha=0.08,
-               label=f"ripple allowance {v.spec_ripple_db:g} dB")
-    cx.grid(alpha=0.3)
-    cx.set_xlabel("input frequency offset from channel centre")
-    cx.set_ylabel("gain (dB)")
-    _hz_axis(cx)
-    cx.legend(loc="lower center", fontsize=7)
-    cx.set_title(f"(c) passband: measured ripple {v.measured_ripple_db:.4f} dB, predicted {v.predicted_ripple_db:.4f} dB")
-    save_figure(fig, path)
-
-
-def _tested_bands(stages, fs, bandwidth, aliases):
-    """(image, lo, hi) of every folding band that holds at least one of the alias tones."""
-    ivs = alias_intervals(stages, fs=fs, bandwidth=bandwidth)
-    if not ivs or not aliases:
-        return []
-    lo = np.array([iv[0] for iv in ivs])
-    hi = np.array([iv[1] for iv in ivs])
-    img = np.array([iv[2] for iv in ivs])
-    hit = np.zeros(lo.size, dtype=bool)
-    for k in {t.image for t in aliases}:
-        sel = np.flatnonzero(img == k)
-        order = sel[np.argsort(lo[sel])]
-        f = np.array([t.input_hz for t in aliases if t.image == k])
-        j = np.searchsorted(lo[order], f, side="right") - 1
-        ok = (j >= 0) & (f <= hi[order[np.clip(j, 0, None)]])
-        hit[order[j[ok]]] = True
-    return [(int(img[i]), float(lo[i]), float(hi[i])) for i in np.flatnonzero(hit)]

@@ -100,7 +100,8 @@ def run_demo(out_dir, *, capture_path=None, progress=False):
     from ..views.plots import plot_plan
     from ..views.report import write_report
     from ..planning.spec import ChainSpec
-    from ..checks.survey import plot_survey, survey_capture
+    from ..checks.survey import survey_capture
+    from ..views.survey_plot import plot_survey
 
     t0 = time.perf_counter()
     if os.path.exists(out_dir) and not os.path.isdir(out_dir):
@@ -146,7 +147,8 @@ def run_demo(out_dir, *, capture_path=None, progress=False):
 
     verification = None
     try:
-        from ..checks.verify import plot_verification, verify_plan
+        from ..checks.verify import verify_plan
+        from ..views.verify_plot import plot_verification
     except ImportError:  # pragma: no cover - verify ships with the package
         verify_plan = None
     if verify_plan is not None:

@@ -10,7 +10,7 @@ import sys
 
 import yaml
 
-from .datatypes import _shown
+from ..errors import shown
 from ..errors import ChannelizerError
 from .names import safe_output_name
 from ..units import parse_frequency
@@ -38,7 +38,7 @@ def _frequency(value, where):
         return parse_frequency(text, name=where), text[:1] in "+-"
     # abs(value) <= max float: finite, and no OverflowError for an integer of any length
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not abs(value) <= sys.float_info.max:
-        raise ChannelizerError(f"{where}: expected a frequency in Hz, got {_shown(value)}")
+        raise ChannelizerError(f"{where}: expected a frequency in Hz, got {shown(value)}")
     return float(value), value < 0
 
 
@@ -50,7 +50,7 @@ def parse_channel_option(text):
     try:
         name = safe_output_name(name.strip())
     except ChannelizerError as exc:
-        raise ChannelizerError(f"--channel {_shown(text)}: {exc}") from None
+        raise ChannelizerError(f"--channel {shown(text)}: {exc}") from None
     f, off = _frequency(freq, f"--channel {name}")
     return ChannelEntry(name, f, off)
 
@@ -80,7 +80,7 @@ def parse_channel_list(text, *, source="channel list"):
         if unknown:
             raise ChannelizerError(f"{where}: unknown key(s) {', '.join(sorted(map(str, unknown)))}")
         if not isinstance(item.get("name"), str):
-            got = "a list" if isinstance(item.get("name"), list) else _shown(item.get("name"))
+            got = "a list" if isinstance(item.get("name"), list) else shown(item.get("name"))
             raise ChannelizerError(f"{where}: name must be text, got {got}")
         try:
             name = safe_output_name(item["name"])
@@ -91,7 +91,7 @@ def parse_channel_list(text, *, source="channel list"):
         f, off = _frequency(item["frequency"], f"{where} ({name}) frequency")
         plan = item.get("plan")
         if plan is not None and not isinstance(plan, str):
-            raise ChannelizerError(f"{where} ({name}): plan must be a file path, got {_shown(plan)}")
+            raise ChannelizerError(f"{where} ({name}): plan must be a file path, got {shown(plan)}")
         out.append(ChannelEntry(name, f, off, plan))
     return out
 

@@ -21,11 +21,10 @@ Scaling (common practice; the convention this tool uses everywhere):
 
 import dataclasses
 import re
-import reprlib
 
 import numpy as np
 
-from ..errors import ChannelizerError
+from ..errors import ChannelizerError, shown
 
 __all__ = ["Datatype", "parse_datatype", "to_complex64", "from_complex64", "DATATYPE_EXAMPLES"]
 
@@ -70,21 +69,6 @@ class Datatype:
         return self.kind in ("i", "u")
 
 
-_REPR = reprlib.Repr()
-_REPR.maxlevel, _REPR.maxstring, _REPR.maxother, _REPR.maxlong = 3, 200, 200, 200
-
-
-def _shown(value, limit=60):
-    """``repr(value)`` cut to ``limit`` characters, for one-line messages.
-
-    Nested containers are shown only a few levels and items deep, so that a value
-    holding millions of references to one list (YAML aliases) or itself is shown
-    at once.
-    """
-    text = _REPR.repr(value)
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
 def parse_datatype(text):
     """Parse a SigMF datatype string under the strict grammar.
 
@@ -111,7 +95,7 @@ def parse_datatype(text):
     m = _GRAMMAR.match(text) if isinstance(text, str) else None
     if m is None:
         raise ChannelizerError(
-            f"datatype {_shown(text)} is not a SigMF datatype; expected (c|r) + (f32|f64|i32|i16|u32|u16)"
+            f"datatype {shown(text)} is not a SigMF datatype; expected (c|r) + (f32|f64|i32|i16|u32|u16)"
             f" + (_le|_be), or (c|r) + (i8|u8), e.g. {', '.join(DATATYPE_EXAMPLES)}"
         )
     body = m.group("wide") or m.group("byte")

@@ -13,7 +13,7 @@ import sys
 import numpy as np
 import yaml
 
-from ..io.datatypes import _shown
+from ..errors import shown
 from ..errors import ChannelizerError
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates, is_halfband
 
@@ -124,7 +124,7 @@ class Plan:
             raise ChannelizerError(f"{source}: expected a mapping of plan keys, got {_kind(data)}")
         fmt = data.get("format")
         if fmt != PLAN_FORMAT:
-            raise ChannelizerError(f"{source}: format must be {PLAN_FORMAT!r}, got {_shown(fmt)}")
+            raise ChannelizerError(f"{source}: format must be {PLAN_FORMAT!r}, got {shown(fmt)}")
         input_rate = v.positive(data, "input_rate")
         output_rate = v.positive(data, "output_rate")
         bandwidth = v.positive(data, "bandwidth")
@@ -137,7 +137,7 @@ class Plan:
         }
         if "objective" in spec:
             if spec["objective"] not in ("cpu", "hardware"):
-                raise ChannelizerError(f"{source}: spec.objective must be cpu or hardware, got {_shown(spec['objective'])}")
+                raise ChannelizerError(f"{source}: spec.objective must be cpu or hardware, got {shown(spec['objective'])}")
             spec_out["objective"] = spec["objective"]
         bits = v.mapping(spec, "bits", "spec.bits")
         spec_out["bits"] = {k: v.integer(bits, k, f"spec.bits.{k}", lo=1, hi=64) for k in ("input", "output")}
@@ -204,7 +204,7 @@ def _kind(x):
         return "a mapping"
     if isinstance(x, list):
         return "a list"
-    return _shown(x)
+    return shown(x)
 
 
 def _finite(x):
@@ -236,7 +236,7 @@ class _Validator:
             hint = " (YAML 1.1 reads 1e6 as text: write 1.0e+06)" if _reads_as_float(x) else ""
             self.fail(where, f"expected a number, got {_kind(x)}{hint}")
         if not _finite(x):
-            self.fail(where, f"must be finite, got {_shown(x)}")
+            self.fail(where, f"must be finite, got {shown(x)}")
         return float(x)
 
     def positive(self, d, key, where=None):
@@ -302,7 +302,7 @@ class _Validator:
             taps = self.taps(s, where)
             role = s.get("role", "halfband" if kind == "halfband" else "channel")
             if role not in ("compensator", "channel", "halfband"):
-                self.fail(f"{where}.role", f"must be compensator, channel or halfband, got {_shown(role)}")
+                self.fail(f"{where}.role", f"must be compensator, channel or halfband, got {shown(role)}")
             if kind == "halfband":
                 if dec != 2:
                     self.fail(f"{where}.decimation", f"a half-band decimates by 2, got {dec}")
@@ -319,4 +319,4 @@ class _Validator:
             taps = self.taps(s, where)
             b, fb = self.coefficient_bits(s, where)
             return ResamplerStage(up, dec, taps, b, fb)
-        self.fail(f"{where}.kind", f"must be one of cic, fir, halfband, resampler, got {_shown(kind)}")
+        self.fail(f"{where}.kind", f"must be one of cic, fir, halfband, resampler, got {shown(kind)}")

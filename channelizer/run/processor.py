@@ -13,7 +13,6 @@ import hashlib
 import json
 import math
 import os
-import sys
 import time
 
 import numpy as np
@@ -23,8 +22,9 @@ from ..errors import ChannelizerError
 from ..io.names import safe_output_name
 from ..dsp.spectrum import WelchAccumulator
 from ..planning.stages import chain_rates
+from ..io.progress import ProgressBar
 
-__all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples", "ProgressBar"]
+__all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples"]
 
 DEFAULT_BLOCK = 1 << 20
 #: At most this many input samples go into the overview spectrum (spread over the file).
@@ -91,36 +91,6 @@ def chain_delay_output_samples(stages, *, fs):
     rates = chain_rates(stages, fs=fs)
     delay_in = sum(st.delay * fs / rate for st, rate in zip(stages, rates))
     return delay_in * rates[-1] / fs
-
-
-class ProgressBar:
-    """A one-line progress bar on stderr, shown only on a terminal."""
-
-    def __init__(self, total, *, enabled=None, label="", stream=None):
-        self.stream = stream or sys.stderr
-        self.enabled = (self.stream.isatty() if enabled is None else enabled) and total > 0
-        self.total = total
-        self.label = label
-        self.start = time.monotonic()
-        self.last = 0.0
-
-    def update(self, done):
-        if not self.enabled:
-            return
-        now = time.monotonic()
-        if now - self.last < 0.2 and done < self.total:
-            return
-        self.last = now
-        frac = min(done / self.total, 1.0)
-        rate = done / max(now - self.start, 1e-9)
-        bar = "#" * int(frac * 30)
-        self.stream.write(f"\r{self.label} [{bar:<30}] {frac * 100:5.1f}% {rate / 1e6:7.2f} Msps")
-        self.stream.flush()
-
-    def close(self):
-        if self.enabled:
-            self.stream.write("\n")
-            self.stream.flush()
 
 
 def check_channel(capture, req):
@@ -242,7 +212,7 @@ class _Pass:
             self.runners = [_integer_chain(r, capture) for r in requests]
         else:
             # channels sharing a first stage share its matrix product
-            from ..engines.streaming import SharedFrontBank
+            from ..engines.float_chain import SharedFrontBank
 
             self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs)
         n_total = capture.num_samples
