@@ -157,6 +157,7 @@ def _cmd_extract(args):
         progress=not args.quiet,
         nonfinite="zero" if args.zero_nonfinite else "error",
         block_size=args.block_size,
+        trim_settling=args.trim_settling,
     )
     from .units import format_hz
 
@@ -198,6 +199,7 @@ def _register_extract(sub):
     e.add_argument("--output-format", choices=["cf32_le", "ci16_le"], default="cf32_le")
     e.add_argument("--bit-true", action="store_true", help="integer arithmetic as hardware would do it")
     e.add_argument("--no-plots", action="store_true", help="skip overview.png and the per-channel plots")
+    e.add_argument("--trim-settling", action="store_true", help="leave out each channel's start-up samples (the chain's settling length) instead of marking them with an annotation")
     e.add_argument("--zero-nonfinite", action="store_true", help="replace NaN/inf samples by zero instead of refusing")
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
     e.add_argument("--quiet", action="store_true", help="no progress bar")

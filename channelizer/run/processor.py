@@ -23,6 +23,7 @@ from ..io.names import safe_output_name
 from ..dsp.spectrum import WelchAccumulator
 from ..planning.stages import chain_rates
 from ..io.progress import ProgressBar
+from .timing import channel_timing
 
 __all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples"]
 
@@ -74,6 +75,7 @@ class ChannelResult:
     clipped: int = 0
     spectrum: object = None
     alias_audit: list = field(default_factory=list)
+    timing: object = None
 
 
 @dataclass
@@ -145,6 +147,7 @@ def extract_channels(
     progress=False,
     spectra=True,
     fileset=None,
+    trim_settling=False,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -169,6 +172,9 @@ def extract_channels(
         Leave the recordings uncommitted in this set (the caller adds the summary
         and commits, so that all outputs of a run appear together); by default
         they are committed here once every channel is complete.
+    trim_settling : bool
+        Leave out each channel's start-up samples (see :mod:`channelizer.run.timing`);
+        otherwise they are written and marked by an annotation.
 
     Returns
     -------
@@ -186,6 +192,7 @@ def extract_channels(
         raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
     _prepare_out_dir(out_dir)
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra)
+    one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
     own_set = fileset is None
     files = FileSet() if own_set else fileset
     t0 = time.perf_counter()
@@ -257,7 +264,8 @@ class _Pass:
         centre = cap.center_frequency
         bar = ProgressBar(cap.num_samples, enabled=None if progress else False, label="extract")
         with contextlib.ExitStack() as stack:
-            for r, name in zip(self.requests, self.names):
+            skip = [t.skipped for t in self.timing]
+            for r, name, timing in zip(self.requests, self.names, self.timing):
                 meta_global = {
                     "core:description": f"channel {name} extracted by channelizer",
                     "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
@@ -274,6 +282,8 @@ class _Pass:
                     fs=r.plan.output_rate,
                     center_frequency=None if centre is None else centre + r.offset,
                     global_extra=meta_global,
+                    capture_extra=timing.capture_fields(cap.start_datetime),
+                    annotations=timing.annotations(),
                     fileset=files,
                 )
                 self.writers.append(stack.enter_context(w))
@@ -284,6 +294,9 @@ class _Pass:
             done = 0
             for i, block in enumerate(blocks):
                 for k, y in enumerate(self._outputs(i, block)):
+                    if skip[k]:  # start-up samples left out (--trim-settling)
+                        cut = min(skip[k], y.size)
+                        y, skip[k] = y[cut:], skip[k] - cut
                     if y.size:
                         self.writers[k].write(y)
                         self.power[k] += float(np.vdot(y, y).real)
@@ -313,6 +326,7 @@ class _Pass:
                     files=[os.path.basename(w.data_path), os.path.basename(w.meta_path)],
                     clipped=int(w.clipped),
                     spectrum=spec.result() if spec is not None and spec.segments else None,
+                    timing=self.timing[k],
                 )
             )
         ov = self.overview.result() if self.overview is not None and self.overview.segments else None
@@ -341,6 +355,8 @@ def write_summary(result, out_dir, *, extra=None, fileset=None):
                 "files": c.files,
                 "clipped_samples": c.clipped,
                 "alias_audit": c.alias_audit,
+                **({} if c.timing is None else {
+                    "settling_samples": c.timing.settling, "settling_trimmed": c.timing.skipped > 0}),
             }
             for c in result.channels
         ],
