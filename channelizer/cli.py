@@ -179,7 +179,24 @@ def _cmd_extract(args):
             f"{len(ch.alias_audit)} ({flagged} above the output noise)"
         )
     print(f"summary written to {result.summary_path}")
-    return 0
+    return _extract_warnings(result, fail_on_alias=args.fail_on_alias)
+
+
+def _extract_warnings(result, *, fail_on_alias):
+    """Warnings on stderr; exit status 1 when a signal folds above the noise and that is to fail."""
+    from .units import format_hz
+
+    for line in result.warnings:
+        print(f"warning: {line}", file=sys.stderr)
+    folded = [(ch.name, a) for ch in result.channels for a in ch.alias_audit if a["above_noise"]]
+    for name, a in folded:
+        print(
+            f"warning: channel {name}: the signal at {format_hz(a['signal_center_hz'])} folds onto it at "
+            f"{a['output_level_dbfs_per_hz']:.1f} dBFS/Hz, {a['output_level_dbfs_per_hz'] - a['output_noise_floor_dbfs_per_hz']:.1f} dB "
+            "above the output noise floor",
+            file=sys.stderr,
+        )
+    return 1 if folded and fail_on_alias else 0
 
 
 def _add_capture_options(p):
@@ -199,6 +216,7 @@ def _register_extract(sub):
     e.add_argument("--output-format", choices=["cf32_le", "ci16_le"], default="cf32_le")
     e.add_argument("--bit-true", action="store_true", help="integer arithmetic as hardware would do it")
     e.add_argument("--no-plots", action="store_true", help="skip overview.png and the per-channel plots")
+    e.add_argument("--fail-on-alias", action="store_true", help="exit with status 1 when a signal folds onto a channel above its output noise floor (a warning either way)")
     e.add_argument("--trim-settling", action="store_true", help="leave out each channel's start-up samples (the chain's settling length) instead of marking them with an annotation")
     e.add_argument("--zero-nonfinite", action="store_true", help="replace NaN/inf samples by zero instead of refusing")
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
@@ -221,9 +239,19 @@ def _cmd_survey(args):
     if args.plot:
         plot_survey(result, args.plot)
         print(f"\nsurvey plot written to {args.plot}")
+    rows = result.channel_list()
+    if args.plans_out:
+        from .run.survey_plans import plan_signals
+
+        list_dir = os.path.dirname(os.path.abspath(args.channels_out)) if args.channels_out else None
+        rows, problems = plan_signals(rows, args.plans_out, fs=capture.sample_rate, list_dir=list_dir)
+        for line in problems:
+            print(f"warning: {line}", file=sys.stderr)
+        print(f"{sum('plan' in r for r in rows)} plan(s) written to {args.plans_out}")
     if args.channels_out:
-        write_text_atomic(args.channels_out, dump_channel_list(result.channel_list()))
-        print(f"channel list written to {args.channels_out} (edit names, add plan: to each)")
+        write_text_atomic(args.channels_out, dump_channel_list(rows))
+        hint = "edit names" if args.plans_out else "edit names, add plan: to each"
+        print(f"channel list written to {args.channels_out} ({hint})")
     return 0
 
 
@@ -234,6 +262,7 @@ def _register_survey(sub):
     v.add_argument("--resolution", type=_rate("resolution"), help="frequency resolution (default: rate / 4096)")
     v.add_argument("--threshold-db", type=_positive_float, default=10.0, help="detection threshold above the noise floor (default 10)")
     v.add_argument("--channels-out", metavar="FILE", help="write the detected signals as a channel list for extract --channels")
+    v.add_argument("--plans-out", metavar="DIR", help="plan a chain for each detected signal from its occupied bandwidth and write DIR/NAME.yaml (named in the --channels-out list)")
     v.add_argument("--quiet", action="store_true", help="no progress bar")
     v.set_defaults(func=_cmd_survey)
 

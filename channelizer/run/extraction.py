@@ -10,6 +10,7 @@ from ..io.channels import resolve_offset
 from ..errors import ChannelizerError
 from ..planning.plan import MAX_PLAN_BYTES, Plan
 from ..io.atomic import FileSet
+from ..units import format_hz
 from .processor import ChannelRequest, extract_channels, plan_identity, write_summary
 
 __all__ = ["load_plan_file", "run_extraction"]
@@ -49,10 +50,12 @@ def run_extraction(
     A channel's own plan path (from a channel list) is read relative to
     ``base_dir``; otherwise ``plan_path`` serves.  Returns the ExtractResult, with
     ``summary.json`` written and, unless ``plots`` is false, ``overview.png`` and
-    one ``NAME.png`` per channel.
+    one ``NAME.png`` per channel; ``result.warnings`` holds a line per channel whose
+    listed bandwidth is wider than its plan's passband.
     """
     plans = {}
     requests = []
+    warnings = []
     for e in entries:
         path = plan_path if e.plan is None else os.path.join(base_dir, e.plan)
         if path is None:
@@ -60,6 +63,11 @@ def run_extraction(
         if path not in plans:
             plans[path] = load_plan_file(path)
         plan, ident = plans[path]
+        if e.bandwidth is not None and e.bandwidth > plan.bandwidth * (1 + 1e-9):
+            warnings.append(
+                f"channel {e.name}: listed bandwidth {format_hz(e.bandwidth)} is wider than the passband of its plan "
+                f"{os.path.basename(path)} ({format_hz(plan.bandwidth)}); its edges will be cut"
+            )
         requests.append(ChannelRequest(e.name, resolve_offset(e, capture.center_frequency), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
     kw["trim_settling"] = trim_settling
@@ -70,6 +78,7 @@ def run_extraction(
     except BaseException:
         files.abort()
         raise
+    result.warnings = warnings
     if plots:
         _plot(result, requests, capture, out_dir)
     return result

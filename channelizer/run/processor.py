@@ -86,6 +86,7 @@ class ExtractResult:
     seconds: float
     overview: object = None
     summary_path: str = ""
+    warnings: list = field(default_factory=list)
 
 
 def chain_delay_output_samples(stages, *, fs):
