@@ -63,6 +63,11 @@ def _cmd_plan(args):
     from .planning.spec import ChainSpec
     from .views.table import format_alternatives, format_plan
 
+    if args.clock is not None and args.objective != "hardware":
+        raise ChannelizerError(
+            "--clock is the hardware clock that multipliers are shared at; it only applies with --objective hardware "
+            "(the cpu objective counts multiplies per second and has no clock)"
+        )
     spec = ChainSpec(
         input_rate=args.rate,
         bandwidth=args.bandwidth,
@@ -171,7 +176,7 @@ def _cmd_extract(args):
     )
     print(f"{'channel':<16} {'centre':>16} {'rate':>12} {'samples':>10} {'power':>11} {'delay':>9}  folding signals")
     for ch in result.channels:
-        centre = format_hz(ch.center_frequency) if ch.center_frequency is not None else f"{ch.offset:+g} Hz"
+        centre = format_hz(ch.center_frequency) if ch.center_frequency is not None else format_hz(ch.offset, signed=True)
         flagged = sum(1 for a in ch.alias_audit if a["above_noise"])
         print(
             f"{ch.name:<16} {centre:>16} {format_hz(ch.output_rate, 'sps'):>12} {ch.samples:>10} "
@@ -202,8 +207,8 @@ def _extract_warnings(result, *, fail_on_alias):
 def _add_capture_options(p):
     p.add_argument("capture", metavar="CAPTURE", help="SigMF recording (.sigmf-meta/.sigmf-data), two-channel WAV, or raw IQ")
     p.add_argument("--input-format", metavar="DTYPE", help="datatype of a raw file, e.g. ci16_le, cf32_le, cu8")
-    p.add_argument("--rate", type=_rate("rate"), help="sample rate of a raw file")
-    p.add_argument("--center", type=_rate("center"), help="centre frequency of a raw file (optional)")
+    p.add_argument("--rate", type=_rate("rate"), help="sample rate of a raw file in samples/s (e.g. 2.4M); must agree with the file's own rate if it has one")
+    p.add_argument("--center", type=_rate("center"), help="centre frequency of a raw file in Hz (e.g. 161M; optional: without it, frequencies are offsets)")
 
 
 def _register_extract(sub):
@@ -213,14 +218,14 @@ def _register_extract(sub):
     e.add_argument("--channel", action="append", metavar="NAME=FREQ", help="channel to extract; FREQ absolute when the capture states its centre, +/- for an offset (repeatable)")
     e.add_argument("--channels", metavar="FILE", help="YAML channel list: name, frequency, optional plan")
     e.add_argument("--out", required=True, metavar="DIR", help="output folder")
-    e.add_argument("--output-format", choices=["cf32_le", "ci16_le"], default="cf32_le")
+    e.add_argument("--output-format", choices=["cf32_le", "ci16_le"], default="cf32_le", help="SigMF datatype of the channel recordings: cf32_le (32-bit float, default) or ci16_le (16-bit integers, full scale 1.0 = 32768, saturating)")
     e.add_argument("--bit-true", action="store_true", help="integer arithmetic as hardware would do it")
     e.add_argument("--no-plots", action="store_true", help="skip overview.png and the per-channel plots")
     e.add_argument("--fail-on-alias", action="store_true", help="exit with status 1 when a signal folds onto a channel above its output noise floor (a warning either way)")
     e.add_argument("--trim-settling", action="store_true", help="leave out each channel's start-up samples (the chain's settling length) instead of marking them with an annotation")
     e.add_argument("--zero-nonfinite", action="store_true", help="replace NaN/inf samples by zero instead of refusing")
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
-    e.add_argument("--quiet", action="store_true", help="no progress bar")
+    e.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
     e.set_defaults(func=_cmd_extract)
 
 
@@ -259,8 +264,8 @@ def _register_survey(sub):
     v = sub.add_parser("survey", help="spectrum, spectrogram and occupied signals of a capture", description="Survey a capture: Welch PSD, spectrogram, noise floor and the occupied signals.")
     _add_capture_options(v)
     v.add_argument("--plot", metavar="FILE.png", help="write the PSD and spectrogram figure")
-    v.add_argument("--resolution", type=_rate("resolution"), help="frequency resolution (default: rate / 4096)")
-    v.add_argument("--threshold-db", type=_positive_float, default=10.0, help="detection threshold above the noise floor (default 10)")
+    v.add_argument("--resolution", type=_rate("resolution"), help="frequency resolution in Hz (SI suffixes allowed, e.g. 500 or 1k): the Welch segment is the next power of two at or above rate / resolution, so bins come out at or below it (default: rate / 4096)")
+    v.add_argument("--threshold-db", type=_positive_float, default=10.0, help="detection threshold in dB above the local noise floor, for the strongest bins and for the signal's power over the noise in its occupied band (default 10)")
     v.add_argument("--channels-out", metavar="FILE", help="write the detected signals as a channel list for extract --channels")
     v.add_argument("--plans-out", metavar="DIR", help="plan a chain for each detected signal from its occupied bandwidth and write DIR/NAME.yaml (named in the --channels-out list)")
     v.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -271,6 +276,11 @@ def _cmd_demo(args):
     from .demo.job import run_demo, write_demo_capture
 
     if args.write_capture:
+        folder = os.path.dirname(os.path.abspath(args.write_capture))
+        try:
+            os.makedirs(folder, exist_ok=True)
+        except OSError as exc:
+            raise ChannelizerError(f"{folder}: cannot create the folder ({exc.strerror})") from None
         write_demo_capture(args.write_capture)
         print(f"demo capture written to {args.write_capture}.sigmf-meta / .sigmf-data")
         return 0
@@ -325,7 +335,7 @@ def _register_verify(sub):
     v = sub.add_parser("verify", help="measure a plan with tone sweeps through the real processor", description="Drive the extract processor with test tones in the passband and in every band that folds onto it; compare measured with predicted. Exit 0 when the measured figures meet the plan's spec, 1 when not, 2 for bad input.")
     v.add_argument("plan", metavar="PLAN.yaml")
     v.add_argument("--bit-true", action="store_true", help="run the integer chain")
-    v.add_argument("--tones", type=int, default=None, help="number of alias-band tones (default: the library's choice)")
+    v.add_argument("--tones", type=int, default=None, help="number of test tones spread over the bands that fold onto the passband (default 200; the passband always gets 17)")
     v.add_argument("--plot", metavar="FILE.png", help="measured points over the predicted response")
     v.add_argument("--json", metavar="FILE", help="write every measurement as JSON")
     v.set_defaults(func=_cmd_verify)
@@ -402,6 +412,7 @@ def build_parser():
         prog="channelizer",
         description="Plan, apply, check and hand off multistage decimation chains for IQ captures.",
     )
+    p.add_argument("--version", action="version", version=f"%(prog)s {sys.modules[__package__].__version__}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
@@ -411,8 +422,8 @@ def build_parser():
     q.add_argument("--output-rate", type=_rate("output rate"), default=None, help="required output rate (default: lowest integer-decimation rate >= 1.25 x bandwidth)")
     q.add_argument("--ripple-db", type=_positive_float, default=0.1, help="largest peak-to-peak passband ripple (default 0.1)")
     q.add_argument("--rejection-db", type=_positive_float, default=80.0, help="smallest alias rejection (default 80)")
-    q.add_argument("--input-bits", type=_bits, default=16)
-    q.add_argument("--output-bits", type=_bits, default=16)
+    q.add_argument("--input-bits", type=_bits, default=16, help="ADC sample width in bits, real and imaginary each (2..32, default 16); sets the CIC register growth")
+    q.add_argument("--output-bits", type=_bits, default=16, help="output sample width in bits for the hardware hand-off (2..32, default 16)")
     q.add_argument("--coefficient-bits", type=_bits, default=18, help="FIR coefficient width for --objective hardware (default 18)")
     q.add_argument("--objective", choices=["cpu", "hardware"], default="cpu", help="what to minimise (default cpu)")
     q.add_argument("--clock", type=_rate("clock"), default=None, help="hardware clock (default: the input rate)")
@@ -438,7 +449,11 @@ _EXTRA_COMMANDS = [_register_extract, _register_survey, _register_verify, _regis
 def main(argv=None):
     """Run the command line; returns the exit status."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, unknown = parser.parse_known_args(argv)
+    if unknown:  # name the command and the option it does not know
+        sub = f"{parser.prog} {args.command}"
+        print(f"{sub}: error: unknown option or extra argument: {' '.join(unknown)} (see {sub} --help)", file=sys.stderr)
+        return 2
     try:
         return args.func(args) or 0
     except ChannelizerError as exc:

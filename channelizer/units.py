@@ -62,17 +62,19 @@ def resolution_step(resolution):
     return 10.0 ** math.floor(math.log10(resolution))
 
 
-def format_hz(value, unit="Hz", digits=6, *, resolution=None):
+def format_hz(value, unit="Hz", digits=6, *, resolution=None, signed=False):
     """Format a value in Hz with an SI prefix: ``format_hz(61.44e6) == '61.44 MHz'``.
 
     With ``resolution`` (Hz), the value is printed to the digit that resolution
     gives (see :func:`resolution_step`), trailing zeros kept:
-    ``format_hz(161.1625e6, resolution=293) == '161.1625 MHz'``.
+    ``format_hz(161.1625e6, resolution=293) == '161.1625 MHz'``.  With ``signed``,
+    a positive value gets a ``+`` (offsets: ``'+100 kHz'``).
     """
     value = float(value)
     mag = abs(value)
     scale, prefix = next(((s, p) for s, p in ((1e9, "G"), (1e6, "M"), (1e3, "k")) if mag >= s), (1.0, ""))
+    sign = "+" if signed else ""
     if resolution is not None:
         decimals = max(0, round(math.log10(scale / resolution_step(resolution))))
-        return f"{value / scale:.{decimals}f} {prefix}{unit}"
-    return f"{value / scale:.{digits}g} {prefix}{unit}"
+        return f"{value / scale:{sign}.{decimals}f} {prefix}{unit}"
+    return f"{value / scale:{sign}.{digits}g} {prefix}{unit}"

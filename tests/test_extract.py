@@ -200,5 +200,5 @@ def test_refusals_name_the_numbers(plan_file, capture, tmp_path, capsys):
     rc = main(["extract", cap_path, "--plan", str(other), "--channel", "x=+0", "--out", str(tmp_path / "o2")])
     assert rc == 2
     err = capsys.readouterr().err
-    assert "2.4e+06" in err and "1e+06" in err
+    assert "2.4 Msps" in err and "1 Msps" in err
     assert not (tmp_path / "o2" / "x.sigmf-meta").exists()

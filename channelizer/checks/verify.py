@@ -65,6 +65,7 @@ import numbers
 import numpy as np
 
 from ..errors import ChannelizerError
+from ..units import format_hz
 from ..planning.plan import Plan
 from ..planning.response import fold, predict
 from ..planning.stages import chain_rates
@@ -229,7 +230,7 @@ class Verification:
             f"{' (bit-true)' if self.bit_true else ''}",
             f"passband ripple: measured {db(self.measured_ripple_db)}, predicted {db(self.predicted_ripple_db)}, "
             f"spec {db(self.spec_ripple_db)}; largest tone error {db(self.max_passband_error_db)}",
-            f"alias rejection: measured {db(self.measured_rejection_db)}{bound} at {self.worst_alias_hz:.6g} Hz "
+            f"alias rejection: measured {db(self.measured_rejection_db)}{bound} at {format_hz(self.worst_alias_hz, signed=True)} "
             f"(path {self.worst_alias_image}), predicted {db(self.predicted_rejection_db)}, spec {db(self.spec_rejection_db)}",
             f"verdict: {'meets' if self.meets_spec else 'does not meet'} the spec",
         ]

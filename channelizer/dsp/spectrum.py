@@ -34,6 +34,7 @@ import scipy.signal
 import scipy.stats
 
 from ..errors import ChannelizerError
+from ..units import format_hz
 
 __all__ = [
     "Psd",
@@ -86,7 +87,7 @@ def _segment_length(fs, resolution, nperseg):
         resolution = _positive("resolution", resolution)
         if resolution > fs / 2:
             raise ChannelizerError(
-                f"resolution {resolution:g} Hz is coarser than half the sample rate {fs:g} Hz"
+                f"resolution {format_hz(resolution)} is coarser than half the sample rate {format_hz(fs)}"
             )
         target = fs / resolution
         n = 1
@@ -402,7 +403,7 @@ def tone_power_dbfs(psd, frequency, *, span_bins=None, noise_floor=None):
     frequency = _finite("frequency", frequency)
     lo, hi = psd.freqs[0] - psd.bin_hz / 2, psd.freqs[-1] + psd.bin_hz / 2
     if not lo <= frequency < hi:
-        raise ChannelizerError(f"tone frequency {frequency:g} Hz is outside the spectrum [{lo:g}, {hi:g}) Hz")
+        raise ChannelizerError(f"tone frequency {format_hz(frequency)} is outside the spectrum [{lo:g}, {hi:g}) Hz")
     if span_bins is None:
         span_bins = int(math.ceil(3.0 * psd.enbw_bins))
     elif isinstance(span_bins, bool) or not isinstance(span_bins, (int, np.integer)) or span_bins < 0:

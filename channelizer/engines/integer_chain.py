@@ -68,6 +68,7 @@ import numbers
 import numpy as np
 
 from ..errors import ChannelizerError
+from ..units import format_hz
 from ..dsp.fixedpoint import (
     IntegerCic,
     IntegerFir,
@@ -293,9 +294,9 @@ class IntegerChain:
         offset = _real(offset, "offset")
         rate = float(plan.input_rate) if fs is None else _real(fs, "fs")
         if not math.isclose(rate, plan.input_rate, rel_tol=1e-9):
-            raise ChannelizerError(f"fs {rate:g} Hz differs from the plan's input rate {plan.input_rate:g} Hz")
+            raise ChannelizerError(f"fs {format_hz(rate)} differs from the plan's input rate {format_hz(plan.input_rate)}")
         if abs(offset) >= rate / 2:
-            raise ChannelizerError(f"offset {offset:g} Hz is outside +-fs/2 = +-{rate / 2:g} Hz")
+            raise ChannelizerError(f"offset {format_hz(offset)} is outside +-fs/2 = +-{format_hz(rate / 2)}")
         g = _checked_int(internal_guard_bits, "internal_guard_bits", low=1, high=16)
         if coefficient_bits is not None:
             coefficient_bits = _checked_int(coefficient_bits, "coefficient_bits", low=2, high=32)

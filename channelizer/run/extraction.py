@@ -68,7 +68,7 @@ def run_extraction(
                 f"channel {e.name}: listed bandwidth {format_hz(e.bandwidth)} is wider than the passband of its plan "
                 f"{os.path.basename(path)} ({format_hz(plan.bandwidth)}); its edges will be cut"
             )
-        requests.append(ChannelRequest(e.name, resolve_offset(e, capture.center_frequency), plan, ident, path))
+        requests.append(ChannelRequest(e.name, _offset(e, capture), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
     kw["trim_settling"] = trim_settling
     files = FileSet()  # the recordings and the summary appear together, or not at all
@@ -82,6 +82,21 @@ def run_extraction(
     if plots:
         _plot(result, requests, capture, out_dir)
     return result
+
+
+def _offset(entry, capture):
+    """The entry's offset from the centre; an absolute frequency far outside the band that
+    would fit as an offset is refused with the offset spelled out."""
+    offset = resolve_offset(entry, capture.center_frequency)
+    half = capture.sample_rate / 2
+    if not entry.is_offset and capture.center_frequency is not None and abs(offset) > half >= abs(entry.frequency):
+        short = format_hz(entry.frequency, signed=True).replace(" ", "").removesuffix("Hz")
+        raise ChannelizerError(
+            f"channel {entry.name}: {format_hz(entry.frequency)} is read as an absolute frequency, outside the captured "
+            f"band {format_hz(capture.center_frequency - half)} to {format_hz(capture.center_frequency + half)}; "
+            f"for an offset from the centre write {entry.name}={short}"
+        )
+    return offset
 
 
 def _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw):

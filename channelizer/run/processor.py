@@ -23,6 +23,7 @@ from ..io.names import safe_output_name
 from ..dsp.spectrum import WelchAccumulator
 from ..planning.stages import chain_rates
 from ..io.progress import ProgressBar
+from ..units import format_hz
 from .timing import channel_timing
 
 __all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples"]
@@ -102,17 +103,19 @@ def check_channel(capture, req):
     fs = capture.sample_rate
     if not math.isclose(fs, plan.input_rate, rel_tol=1e-9):
         raise ChannelizerError(
-            f"channel {req.name}: the capture {capture.path} runs at {fs:g} Hz but its plan"
-            f"{' ' + str(req.plan_source) if req.plan_source else ''} expects {plan.input_rate:g} Hz"
+            f"channel {req.name}: the capture {capture.path} runs at {format_hz(fs, 'sps')} but its plan"
+            f"{' ' + str(req.plan_source) if req.plan_source else ''} expects {format_hz(plan.input_rate, 'sps')}"
         )
     half = plan.bandwidth / 2.0
     if abs(req.offset) + half > fs / 2.0:
         where = capture.center_frequency
         span = (
-            f"{where - fs / 2:g} to {where + fs / 2:g} Hz" if where is not None else f"{-fs / 2:g} to {fs / 2:g} Hz offset"
+            f"{format_hz(where - fs / 2)} to {format_hz(where + fs / 2)}"
+            if where is not None
+            else f"{format_hz(-fs / 2)} to {format_hz(fs / 2, signed=True)} offset"
         )
         raise ChannelizerError(
-            f"channel {req.name}: passband {req.offset - half:+g} to {req.offset + half:+g} Hz from centre "
+            f"channel {req.name}: passband {format_hz(req.offset - half, signed=True)} to {format_hz(req.offset + half, signed=True)} from centre "
             f"leaves the captured band ({span})"
         )
 

@@ -1,5 +1,7 @@
 """Plain-text tables of a plan's stages, predicted figures and alternatives."""
 
+import math
+
 from ..planning.cost import chain_cost
 from ..planning.stages import CicStage, ResamplerStage, chain_rates
 from ..units import format_hz
@@ -22,6 +24,16 @@ def _detail(st):
     if isinstance(st, ResamplerStage):
         return f"up {st.interpolation}, down {st.decimation}{q}"
     return f"{len(st.taps)} taps{q}"
+
+
+def _overall_ratio(stages):
+    """The chain's rate change as a ratio: ``/245``, or ``x3/4`` through a rational stage."""
+    up = down = 1
+    for st in stages:
+        up, down = up * st.interpolation, down * st.decimation
+    g = math.gcd(up, down)
+    up, down = up // g, down // g
+    return f"/{down}" if up == 1 else f"x{up}/{down}"
 
 
 def stage_rows(plan):
@@ -64,7 +76,7 @@ def format_plan(plan):
     hw = spec.get("objective") == "hardware"
     lines = [
         f"Chain: {format_hz(plan.input_rate, 'sps')} -> {format_hz(plan.output_rate, 'sps')} "
-        f"(x{plan.output_rate / plan.input_rate:.6g}), channel {format_hz(plan.bandwidth)} "
+        f"({_overall_ratio(plan.stages)}), channel {format_hz(plan.bandwidth)} "
         f"(passband +-{format_hz(plan.bandwidth / 2)}), objective {spec.get('objective', 'cpu')}",
         "",
     ]
@@ -98,7 +110,7 @@ def format_plan(plan):
         f"Cost  {t.multiplies_per_input_sample:.4f} multiplies per input sample, "
         f"{t.multiplies_per_second / 1e6:.3f} M multiplies/s, {t.additions_per_second / 1e6:.3f} M additions/s, "
         f"{t.coefficients} coefficients, {t.register_bits} register bits"
-        + (f", {t.multipliers} multipliers at {format_hz(spec.get('clock') or plan.input_rate)}" if hw else ""),
+        + (f", {t.multipliers} multiplier{'s' if t.multipliers != 1 else ''} at {format_hz(spec.get('clock') or plan.input_rate)}" if hw else ""),
     ]
     return "\n".join(lines)
 
