@@ -176,7 +176,7 @@ def _cmd_extract(args):
     )
     print(f"{'channel':<16} {'centre':>16} {'rate':>12} {'samples':>10} {'power':>11} {'delay':>9}  folding signals")
     for ch in result.channels:
-        centre = format_hz(ch.center_frequency) if ch.center_frequency is not None else format_hz(ch.offset, signed=True)
+        centre = format_hz(ch.center_frequency, digits=10) if ch.center_frequency is not None else format_hz(ch.offset, signed=True)
         flagged = sum(1 for a in ch.alias_audit if a["above_noise"])
         print(
             f"{ch.name:<16} {centre:>16} {format_hz(ch.output_rate, 'sps'):>12} {ch.samples:>10} "
