@@ -132,6 +132,12 @@ def _plot(result, requests, capture, out_dir):
             [(r.name, center + r.offset, r.plan.bandwidth) for r in requests],
             os.path.join(out_dir, "overview.png"),
         )
+    noise = None
+    if result.overview is not None:
+        from ..dsp.detection import estimate_noise_floor
+
+        level = estimate_noise_floor(result.overview)
+        noise = 10.0 * math.log10(level) if level > 0 else None
     for req, ch in zip(requests, result.channels):
         if ch.spectrum is None:
             continue
@@ -143,6 +149,8 @@ def _plot(result, requests, capture, out_dir):
             alias_floor_dbfs_per_hz=floor,
             audit=ch.alias_audit,
             path=os.path.join(out_dir, f"{ch.name}.png"),
+            rejection_db=req.plan.predicted.get("alias_rejection_db"),
+            noise_floor_dbfs_per_hz=noise,
         )
 
 

@@ -138,13 +138,19 @@ def plot_overview(psd, channels, path, *, title=None):
     save_figure(fig, path)
 
 
-def plot_channel(psd, *, name, bandwidth, alias_floor_dbfs_per_hz=None, audit=(), path, title=None):
+def plot_channel(
+    psd, *, name, bandwidth, alias_floor_dbfs_per_hz=None, audit=(), path, title=None, rejection_db=None, noise_floor_dbfs_per_hz=None
+):
     """One output's spectrum with its passband edges and the predicted alias floor.
 
     ``audit``: folded signals as dicts with ``landing_offset_hz`` and
-    ``output_level_dbfs_per_hz`` drawn as markers.
+    ``output_level_dbfs_per_hz`` drawn as markers.  The level axis stops 10 dB
+    under ``noise_floor_dbfs_per_hz`` (the capture's noise floor; by default the
+    output's) less ``rejection_db`` (the plan's rejection; 60 dB when not given),
+    where the chain leaves the rejected noise: what lies further down is drawn on
+    the axis's lower edge, marked as below it.  The legend sits beside the axes, never over the data.
     """
-    fig, axes = new_figure(1, 1, size=(10, 5))
+    fig, axes = new_figure(1, 1, size=(12, 5))
     ax = axes[0, 0]
     f = psd.freqs - psd.center_frequency
     ax.plot(f, psd.dbfs_per_hz(), lw=0.8, color="tab:blue", label="output spectrum")
@@ -153,12 +159,36 @@ def plot_channel(psd, *, name, bandwidth, alias_floor_dbfs_per_hz=None, audit=()
     ax.axvspan(-bandwidth / 2, bandwidth / 2, color="tab:green", alpha=0.06, label="passband")
     if alias_floor_dbfs_per_hz is not None and math.isfinite(alias_floor_dbfs_per_hz):
         ax.axhline(alias_floor_dbfs_per_hz, color="tab:red", ls=":", lw=1.2, label="predicted alias floor")
+    bottom, top = _channel_levels(psd, rejection_db, noise_floor_dbfs_per_hz)
+    below = False
     for i, a in enumerate(audit):
-        ax.plot([a["landing_offset_hz"]], [a["output_level_dbfs_per_hz"]], marker="v", color="tab:red" if a.get("above_noise") else "tab:orange", ls="none", label="folded signal (predicted)" if i == 0 else None)
+        level = a["output_level_dbfs_per_hz"]
+        below |= level < bottom
+        ax.plot([a["landing_offset_hz"]], [max(level, bottom + 1.0)], marker="v", color="tab:red" if a.get("above_noise") else "tab:orange",
+                ls="none", clip_on=False, label="folded signal (predicted)" if i == 0 else None)
+    if alias_floor_dbfs_per_hz is not None and math.isfinite(alias_floor_dbfs_per_hz) and alias_floor_dbfs_per_hz < bottom:
+        below = True
+    if below:
+        ax.plot([], [], ls="none", label=f"(at the lower edge: predicted below {bottom:.0f} dBFS/Hz)")
+    ax.set_ylim(bottom, top)
     ax.set_xlabel("offset from channel centre")
     ax.set_ylabel("PSD (dBFS/Hz)")
     _hz_axis(ax)
     ax.grid(alpha=0.3)
-    ax.legend(loc="lower center", fontsize=8)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, borderaxespad=0.0)
     ax.set_title(title or f"{name}: output at {psd.fs / 1e3:g} ksps")
     save_figure(fig, path)
+
+
+def _channel_levels(psd, rejection_db, noise_db):
+    """Level axis of a channel plot: from the noise floor less the rejection to above the peak."""
+    from ..dsp.detection import estimate_noise_floor
+
+    dens = psd.dbfs_per_hz()
+    finite = dens[np.isfinite(dens)]
+    top = float(finite.max()) + 10.0 if finite.size else 0.0
+    if noise_db is None or not math.isfinite(noise_db):
+        noise = estimate_noise_floor(psd)
+        noise_db = 10.0 * math.log10(noise) if noise > 0 else (float(finite.min()) if finite.size else -200.0)
+    depth = rejection_db if rejection_db is not None and math.isfinite(rejection_db) else 60.0
+    return noise_db - depth - 10.0, top
