@@ -162,6 +162,10 @@ def write_report(demo, *, annotations=()):
     ov = os.path.join(os.path.dirname(ex.summary_path), "overview.png")
     if os.path.exists(ov):
         parts.append(_img(ov, "input spectrum with the extracted channels"))
+    if "before-after" in demo.figures:
+        parts.append(f"<p>Before and after: channel {html.escape(demo.figures['before-after-channel'])} taken by plain "
+                     "decimation (every D-th sample, no filter), where its neighbours fold in, and through its chain.</p>")
+        parts.append(_img(demo.figures["before-after"], "the channel before and after the chain"))
     for c in ex.channels:
         parts.append(f"<h3 id='ch-{html.escape(c.name)}'>{html.escape(c.name)}</h3>")
         if c.alias_audit:
