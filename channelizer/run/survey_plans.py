@@ -11,6 +11,7 @@ import os
 
 from ..errors import ChannelizerError
 from ..io.atomic import write_text_atomic
+from .processor import _prepare_out_dir
 
 __all__ = ["plan_signals"]
 
@@ -40,12 +41,7 @@ def plan_signals(channels, out_dir, *, fs, list_dir=None):
     from ..planning.planner import plan_chain
     from ..planning.spec import ChainSpec
 
-    if os.path.exists(out_dir) and not os.path.isdir(out_dir):
-        raise ChannelizerError(f"{out_dir}: exists and is not a folder")
-    try:
-        os.makedirs(out_dir, exist_ok=True)
-    except OSError as exc:
-        raise ChannelizerError(f"{out_dir}: cannot create the plans folder ({exc.strerror})") from None
+    _prepare_out_dir(out_dir)
     base = os.path.abspath(list_dir if list_dir is not None else os.curdir)
     rows, problems = [], []
     for ch in channels:

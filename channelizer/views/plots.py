@@ -4,7 +4,7 @@ import math
 
 import numpy as np
 
-from ..planning.response import alias_intervals, composite_response, fold, image_step
+from ..planning.response import alias_intervals, composite_response
 from ..planning.stages import chain_rates
 from .table import stage_rows
 
