@@ -103,7 +103,7 @@ def format_survey(result):
     lines = [
         f"{cap.path}: {cap.num_samples} samples at {format_hz(cap.sample_rate, 'sps')}"
         + (f", centre {format_hz(cap.center_frequency)}" if cap.center_frequency is not None else ", centre unknown (offsets shown)"),
-        f"Welch average: {psd.window} window, {psd.nperseg}-point segments, {psd.bin_hz:.4g} Hz bins, {psd.segments} segments",
+        f"Welch average: {psd.window} window, {psd.nperseg}-point segments, {format_hz(psd.bin_hz, digits=4)} bins, {psd.segments} segments",
         _floor_line(result),
         f"Occupied bandwidth: {OCCUPIED_BANDWIDTH_DEFINITION}",
         "",

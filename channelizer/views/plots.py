@@ -6,6 +6,7 @@ import numpy as np
 
 from ..planning.response import alias_intervals, composite_response
 from ..planning.stages import chain_rates
+from ..units import format_hz
 from .table import stage_rows
 
 __all__ = ["plot_plan", "new_figure", "save_figure"]
@@ -54,7 +55,6 @@ def plot_plan(plan, path, *, title=None):
     worst folded level over all bands at each output frequency of the passband
     (see :mod:`channelizer.views.plan_panels`), with the worst band on its own.
     """
-    from ..units import format_hz
     from .plan_panels import alias_envelope
 
     fs = plan.input_rate
@@ -161,7 +161,7 @@ def plot_overview(psd, channels, path, *, title=None):
     ax.set_ylabel("PSD (dBFS/Hz)")
     _hz_axis(ax)
     ax.grid(alpha=0.3)
-    ax.set_title(title or f"input spectrum (Welch, {psd.window} window, {psd.bin_hz:.4g} Hz bins) and extracted channels")
+    ax.set_title(title or f"input spectrum (Welch, {psd.window} window, {format_hz(psd.bin_hz, digits=4)} bins) and extracted channels")
     save_figure(fig, path)
 
 

@@ -139,7 +139,7 @@ def write_report(demo, *, annotations=()):
     sv = demo.survey
     parts.append("<h2>Survey of the capture</h2>")
     parts.append(
-        f"<p>Welch average with a {sv.psd.window} window and {sv.psd.bin_hz:.4g} Hz bins; noise floor "
+        f"<p>Welch average with a {sv.psd.window} window and {format_hz(sv.psd.bin_hz, digits=4)} bins; noise floor "
         f"{sv.noise_floor_dbfs_per_hz:.1f} dBFS/Hz; occupied bandwidth is the 99 % power bandwidth.</p>"
     )
     parts.append(
@@ -175,7 +175,7 @@ def write_report(demo, *, annotations=()):
                     [[format_hz(a["signal_center_hz"]), f"{a['signal_power_dbfs']:.1f} dBFS", f"{a['attenuation_db']:.1f} dB",
                       f"{a['output_level_dbfs_per_hz']:.1f} dBFS/Hz",
                       "-" if a["output_noise_floor_dbfs_per_hz"] is None else f"{a['output_noise_floor_dbfs_per_hz']:.1f} dBFS/Hz",
-                      f"{a['landing_offset_hz']:+.0f} Hz"]
+                      format_hz(a['landing_offset_hz'], signed=True)]
                      for a in c.alias_audit],
                 )
             )

@@ -4,6 +4,8 @@ import math
 
 import numpy as np
 
+from ..units import format_hz
+
 
 
 def plot_survey(result, path):
@@ -24,7 +26,7 @@ def plot_survey(result, path):
         ax.axvspan(s.lower_hz, s.upper_hz, color="tab:orange", alpha=0.25)
         ax.annotate(str(i), (s.center_hz, s.power_dbfs - 10 * math.log10(max(s.occupied_bandwidth_hz, 1.0))), fontsize=8, ha="center")
     ax.set_ylabel("PSD (dBFS/Hz)")
-    ax.set_title(f"Welch PSD, {psd.window} window, {psd.bin_hz:.4g} Hz resolution; shaded: occupied (99 %) bands")
+    ax.set_title(f"Welch PSD, {psd.window} window, {format_hz(psd.bin_hz, digits=4)} resolution; shaded: occupied (99 %) bands")
     ax.legend(loc="upper right", fontsize=8)
     ax.grid(alpha=0.3)
     _hz_axis(ax)
