@@ -87,7 +87,7 @@ def _segment_length(fs, resolution, nperseg):
         resolution = _positive("resolution", resolution)
         if resolution > fs / 2:
             raise ChannelizerError(
-                f"resolution {format_hz(resolution)} is coarser than half the sample rate {format_hz(fs)}"
+                f"resolution {format_hz(resolution)} is coarser than half the sample rate {format_hz(fs, 'sps')}"
             )
         target = fs / resolution
         n = 1
@@ -403,7 +403,7 @@ def tone_power_dbfs(psd, frequency, *, span_bins=None, noise_floor=None):
     frequency = _finite("frequency", frequency)
     lo, hi = psd.freqs[0] - psd.bin_hz / 2, psd.freqs[-1] + psd.bin_hz / 2
     if not lo <= frequency < hi:
-        raise ChannelizerError(f"tone frequency {format_hz(frequency)} is outside the spectrum [{lo:g}, {hi:g}) Hz")
+        raise ChannelizerError(f"tone frequency {format_hz(frequency)} is outside the spectrum [{format_hz(lo)}, {format_hz(hi)})")
     if span_bins is None:
         span_bins = int(math.ceil(3.0 * psd.enbw_bins))
     elif isinstance(span_bins, bool) or not isinstance(span_bins, (int, np.integer)) or span_bins < 0:

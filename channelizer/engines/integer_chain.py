@@ -294,7 +294,7 @@ class IntegerChain:
         offset = _real(offset, "offset")
         rate = float(plan.input_rate) if fs is None else _real(fs, "fs")
         if not math.isclose(rate, plan.input_rate, rel_tol=1e-9):
-            raise ChannelizerError(f"fs {format_hz(rate)} differs from the plan's input rate {format_hz(plan.input_rate)}")
+            raise ChannelizerError(f"fs {format_hz(rate, 'sps')} differs from the plan's input rate {format_hz(plan.input_rate, 'sps')}")
         if abs(offset) >= rate / 2:
             raise ChannelizerError(f"offset {format_hz(offset)} is outside +-fs/2 = +-{format_hz(rate / 2)}")
         g = _checked_int(internal_guard_bits, "internal_guard_bits", low=1, high=16)

@@ -211,7 +211,7 @@ def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
     for _ in range(h):
         hb = design_halfband(prot, fs=rate, delta=min(dp_stage, ds))
         if hb is None:
-            return None, f"no half-band serves a {format_hz(2 * prot)} band at {format_hz(rate)}"
+            return None, f"no half-band serves a {format_hz(2 * prot)} band at {format_hz(rate, 'sps')}"
         g = np.array(hb.taps)
         # exact unit DC gain with the centre tap kept at 0.5 and the zeros kept zero
         others = np.arange(len(g)) != len(g) // 2
@@ -254,7 +254,7 @@ def _targets(spec):
             d = min(d, int(math.ceil(fs / (2.0 * spec.stopband_edge))) - 1)
         if d < 2:
             raise ChannelizerError(
-                f"bandwidth {format_hz(spec.bandwidth)} leaves no room to decimate {format_hz(fs)} "
+                f"bandwidth {format_hz(spec.bandwidth)} leaves no room to decimate {format_hz(fs, 'sps')} "
                 f"(the output must be at least {MIN_OVERSAMPLING} x the bandwidth); give --output-rate or a narrower channel"
             )
         return [(d, None, fs / d)]
@@ -270,7 +270,7 @@ def _targets(spec):
         options.append((up, -d_int, d_int, (up, down)))
     if not options:
         raise ChannelizerError(
-            f"output rate {format_hz(spec.output_rate)} needs a resampling ratio beyond x{MAX_INTERPOLATION}; "
+            f"output rate {format_hz(spec.output_rate, 'sps')} needs a resampling ratio beyond x{MAX_INTERPOLATION}; "
             "choose an output rate that is a simpler fraction of the input rate"
         )
     options.sort()
@@ -312,7 +312,7 @@ def plan_chain(spec):
                 candidates.append((est, layout, resampler, dp_stage, d_int))
     if not candidates:
         raise ChannelizerError(
-            f"no chain can take {format_hz(fs)} to a {format_hz(spec.bandwidth)} channel; widen the output rate"
+            f"no chain can take {format_hz(fs, 'sps')} to a {format_hz(spec.bandwidth)} channel; widen the output rate"
         )
     candidates.sort(key=lambda t: t[0])
     tried = []

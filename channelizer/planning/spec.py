@@ -95,18 +95,18 @@ class ChainSpec:
                 )
         if self.bandwidth >= self.input_rate:
             raise ChannelizerError(
-                f"bandwidth {format_hz(self.bandwidth)} must be below the input rate {format_hz(self.input_rate)}; "
+                f"bandwidth {format_hz(self.bandwidth)} must be below the input rate {format_hz(self.input_rate, 'sps')}; "
                 "ask for a narrower channel or a faster capture"
             )
         if self.output_rate is not None:
             if self.output_rate <= self.bandwidth:
                 raise ChannelizerError(
-                    f"output rate {format_hz(self.output_rate)} must exceed the bandwidth {format_hz(self.bandwidth)} "
+                    f"output rate {format_hz(self.output_rate, 'sps')} must exceed the bandwidth {format_hz(self.bandwidth)} "
                     "(complex samples: the rate is the usable width); raise the output rate or narrow the channel"
                 )
             if self.output_rate > self.input_rate:
                 raise ChannelizerError(
-                    f"output rate {format_hz(self.output_rate)} is above the input rate {format_hz(self.input_rate)}; "
+                    f"output rate {format_hz(self.output_rate, 'sps')} is above the input rate {format_hz(self.input_rate, 'sps')}; "
                     "this tool only decimates"
                 )
         for name in ("ripple_db", "rejection_db"):
