@@ -354,7 +354,8 @@ def plan_chain(spec):
     for c in good[1:]:
         extra = c.cost.total.multiplies_per_input_sample - best.cost.total.multiplies_per_input_sample
         if spec.objective == "hardware":
-            c.reason = f"needs {c.cost.total.multipliers - best.cost.total.multipliers} more multipliers"
+            more = c.cost.total.multipliers - best.cost.total.multipliers
+            c.reason = f"needs {more} more multiplier{'s' if more != 1 else ''}"
         else:
             c.reason = f"costs {extra:.3g} more multiplies per input sample"
     alternatives = good[1:] + failed

@@ -145,7 +145,8 @@ def write_report(demo, *, annotations=()):
     parts.append(
         _table(
             ["#", "centre", "occupied bandwidth", "power", "SNR"],
-            [[i, format_hz(s.center_hz), format_hz(s.occupied_bandwidth_hz), f"{s.power_dbfs:.1f} dBFS", f"{s.snr_db:.1f} dB"]
+            [[i, format_hz(s.center_hz, resolution=sv.psd.bin_hz), format_hz(s.occupied_bandwidth_hz, resolution=sv.psd.bin_hz),
+              f"{s.power_dbfs:.1f} dBFS", f"{s.snr_db:.1f} dB"]
              for i, s in enumerate(sv.signals, 1)],
         )
     )
@@ -154,7 +155,7 @@ def write_report(demo, *, annotations=()):
     parts.append(
         _table(
             ["channel", "centre", "rate", "samples", "mean power", "delay (output samples)", "folding signals", "above noise"],
-            [[c.name, format_hz(c.center_frequency), format_hz(c.output_rate, "sps"), c.samples, f"{c.mean_power_dbfs:.1f} dBFS",
+            [[c.name, format_hz(c.center_frequency, digits=10), format_hz(c.output_rate, "sps"), c.samples, f"{c.mean_power_dbfs:.1f} dBFS",
               f"{c.group_delay_output_samples:.1f}", len(c.alias_audit), sum(a["above_noise"] for a in c.alias_audit)]
              for c in ex.channels],
         )
