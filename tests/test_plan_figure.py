@@ -63,3 +63,24 @@ def test_envelope_is_the_worst_folded_level(plan):
 def test_plan_figure_is_written(plan, tmp_path):
     plot_plan(plan, tmp_path / "p.png")
     assert (tmp_path / "p.png").stat().st_size > 20_000
+
+
+def test_channel_plot_clips_at_noise_less_rejection_and_keeps_the_legend_aside(tmp_path, monkeypatch):
+    import channelizer.views.plots as plots
+    from channelizer.dsp.spectrum import WelchAccumulator
+
+    kept = {}
+    monkeypatch.setattr(plots, "save_figure", lambda fig, path: kept.setdefault("fig", fig))
+    rng = np.random.default_rng(3)
+    acc = WelchAccumulator(fs=48e3, nperseg=512)
+    acc.update((rng.standard_normal(1 << 15) + 1j * rng.standard_normal(1 << 15)).astype(np.complex64) * 1e-3)
+    audit = [{"landing_offset_hz": 1e3, "output_level_dbfs_per_hz": -400.0, "above_noise": False}]
+    plots.plot_channel(acc.result(), name="c", bandwidth=12.5e3, alias_floor_dbfs_per_hz=-390.0, audit=audit,
+                       path=tmp_path / "c.png", rejection_db=90.0, noise_floor_dbfs_per_hz=-130.0)
+    ax = kept["fig"].axes[0]
+    assert ax.get_ylim()[0] == pytest.approx(-130.0 - 90.0 - 10.0)
+    # the legend lies to the right of the axes, over no data
+    fig = kept["fig"]
+    fig.canvas.draw()
+    legend = ax.get_legend().get_window_extent()
+    assert legend.x0 >= ax.get_window_extent().x1
