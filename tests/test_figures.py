@@ -3,6 +3,10 @@
 Each check names where its expected value comes from; none is copied from our own output.
 """
 
+import re
+
+import pytest
+
 from channelizer.planning.cost import chain_cost
 from channelizer.planning.stages import CicStage, FirStage
 
@@ -16,3 +20,42 @@ def test_multiplier_count_is_exact_arithmetic():
     for clock, expected in [(61.44e6, 2), (122.88e6, 1), (20.48e6, 6)]:
         cost = chain_cost(stages, fs=61.44e6, objective="hardware", clock=clock)
         assert cost.stages[1].multipliers == expected
+
+
+def _refusal(**kw):
+    from channelizer.errors import ChannelizerError
+    from channelizer.planning.planner import plan_chain
+    from channelizer.planning.spec import ChainSpec
+
+    with pytest.raises(ChannelizerError) as exc:
+        plan_chain(ChainSpec(**kw))
+    return str(exc.value)
+
+
+def test_stopband_edge_messages_name_the_real_limit():
+    # Without --output-rate the only rate is the input's: half of 10 Msps is 5 MHz
+    # (arithmetic), so the message must call 5e+06 Hz half the *input* rate.
+    msg = _refusal(input_rate=10e6, bandwidth=1e6, stopband_edge=6e6)
+    assert "half the input rate (5e+06 Hz)" in msg
+    # An edge at 3 MHz needs an output rate above 6 MHz: no decimation by 2 of 10 Msps
+    # is left (10/2 = 5 < 6, arithmetic).  The bandwidth alone would allow /8.
+    msg = _refusal(input_rate=10e6, bandwidth=1e6, stopband_edge=3e6)
+    assert msg.startswith("stopband edge 3e+06 Hz") and "bandwidth" not in msg
+
+
+def test_output_rate_message_shows_the_rate_as_given():
+    # 1.0000001 MHz printed with %g reads 1e+06, a clean /10 (common practice: %g keeps 6 digits)
+    msg = _refusal(input_rate=10e6, bandwidth=100e3, output_rate=1.0000001e6)
+    assert "1000000.1 Hz" in msg and "1e+06" not in msg
+
+
+def test_hardware_refusal_names_the_coefficient_width():
+    # Rounding taps to b bits leaves a floor near 6.02 b dB below the peak tap
+    # (common practice), less the sum over the taps: 18 bits reach about 90-97 dB,
+    # short of 100 dB, while exact taps meet it.  The message must name the width.
+    msg = _refusal(input_rate=61.44e6, bandwidth=200e3, output_rate=256e3, objective="hardware",
+                   rejection_db=100.0, ripple_db=0.05)
+    assert "droop" not in msg and "18-bit coefficients" in msg
+    need = int(re.search(r"--coefficient-bits (\d+)", msg).group(1))
+    reached = float(re.search(r"rejection ([\d.]+) dB;", msg).group(1))
+    assert 19 <= need <= 22 and 85.0 < reached < 100.0

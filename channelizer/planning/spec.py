@@ -87,10 +87,11 @@ class ChainSpec:
                 raise ChannelizerError(
                     f"stopband edge {self.stopband_edge:g} Hz must lie beyond the passband edge {self.bandwidth / 2:g} Hz"
                 )
+            which = "output" if self.output_rate else "input"
             top = (self.output_rate or self.input_rate) / 2
             if self.stopband_edge >= top:
                 raise ChannelizerError(
-                    f"stopband edge {self.stopband_edge:g} Hz must lie below half the output rate ({top:g} Hz)"
+                    f"stopband edge {self.stopband_edge:g} Hz must lie below half the {which} rate ({top:g} Hz)"
                 )
         if self.bandwidth >= self.input_rate:
             raise ChannelizerError(
