@@ -18,6 +18,9 @@ from .units import parse_frequency
 
 __all__ = ["main", "build_parser"]
 
+#: Exit status of a check whose measurement cannot decide (0 meets, 1 misses, 2 bad input).
+EXIT_INCONCLUSIVE = 3
+
 
 def _rate(name):
     def parse(text):
@@ -256,7 +259,7 @@ def _cmd_demo(args):
     if result.verification is not None:
         v = result.verification
         print(f"verify    measured rejection {v.measured_rejection_db:.1f} dB, ripple {v.measured_ripple_db:.4f} dB: "
-              f"{'meets' if v.meets_spec else 'MISSES'} the spec")
+              f"{v.verdict_text()}")
     print(f"\nreport: {os.path.abspath(result.report_path)}  ({result.seconds:.1f} s)")
     return 0
 
@@ -287,11 +290,11 @@ def _cmd_verify(args):
     if args.json:
         write_text_atomic(args.json, v.to_json())
         print(f"measurements written to {args.json}")
-    return 0 if v.meets_spec else 1
+    return {"meets": 0, "does not meet": 1}.get(v.verdict, EXIT_INCONCLUSIVE)
 
 
 def _register_verify(sub):
-    v = sub.add_parser("verify", help="measure a plan with tone sweeps through the real processor", description="Drive the extract processor with test tones in the passband and in every band that folds onto it; compare measured with predicted. Exit 0 when the measured figures meet the plan's spec, 1 when not, 2 for bad input.")
+    v = sub.add_parser("verify", help="measure a plan with tone sweeps through the real processor", description="Drive the extract processor with test tones in the passband and in every band that folds onto it; compare measured with predicted. Exit 0 when the measured figures meet the plan's spec, 1 when not, 2 for bad input, 3 when the measurement's own floor cannot decide.")
     v.add_argument("plan", metavar="PLAN.yaml")
     v.add_argument("--bit-true", action="store_true", help="run the integer chain")
     v.add_argument("--tones", type=int, default=None, help="number of alias-band tones (default: the library's choice)")
@@ -346,11 +349,15 @@ def _cmd_export(args):
     plan = read_plan(args.plan)
     report = export_plan(plan, args.out, coefficient_bits=args.coefficient_bits, vectors=args.vectors)
     print(report.format())
+    if not report.meets_spec:
+        need = f"; {report.bits_needed}-bit coefficients would meet it" if report.bits_needed else ""
+        print(f"warning: the quantised chain does not meet the plan's spec{need} (files written)", file=sys.stderr)
+        return 1
     return 0
 
 
 def _register_export(sub):
-    x = sub.add_parser("export", help="coefficients, bit widths and test vectors for hardware", description="Write a plan's quantised coefficients (CSV, C header, $readmemh hex), its bit-width table and bit-true test vectors.")
+    x = sub.add_parser("export", help="coefficients, bit widths and test vectors for hardware", description="Write a plan's quantised coefficients (CSV, C header, $readmemh hex), its bit-width table and bit-true test vectors. Exit 0 when the quantised chain meets the plan's spec, 1 when not (files still written), 2 for bad input.")
     x.add_argument("plan", metavar="PLAN.yaml")
     x.add_argument("--out", required=True, metavar="DIR", help="output folder (created; an earlier export there is replaced)")
     x.add_argument("--coefficient-bits", type=_bits, default=None, help="coefficient width (default: the plan's)")

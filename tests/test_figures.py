@@ -59,3 +59,42 @@ def test_hardware_refusal_names_the_coefficient_width():
     need = int(re.search(r"--coefficient-bits (\d+)", msg).group(1))
     reached = float(re.search(r"rejection ([\d.]+) dB;", msg).group(1))
     assert 19 <= need <= 22 and 85.0 < reached < 100.0
+
+
+def _plan_file(tmp_path, name, **kw):
+    from channelizer.planning.planner import plan_chain
+    from channelizer.planning.spec import ChainSpec
+
+    path = tmp_path / name
+    path.write_text(plan_chain(ChainSpec(**kw)).plan.to_yaml())
+    return str(path)
+
+
+def test_export_exit_status_follows_the_verdict(tmp_path, capsys):
+    from channelizer.cli import main
+
+    # 18-bit coefficients cannot hold 150 dB: rounding leaves a floor near
+    # 6.02 x 18 = 108 dB below the peak tap at best (common practice).
+    plan = _plan_file(tmp_path, "deep.yaml", input_rate=1e6, bandwidth=20e3, rejection_db=150.0)
+    out = tmp_path / "hw"
+    assert main(["export", plan, "--out", str(out), "--vectors", "0"]) == 1
+    captured = capsys.readouterr()
+    assert "does NOT meet the spec" in captured.out
+    assert re.search(r"\d+-bit coefficients would meet it", captured.err)
+    assert (out / "bit_widths.csv").exists()  # the files are still written
+
+
+def test_verify_limited_by_its_own_floor_is_inconclusive(tmp_path, capsys):
+    from channelizer.checks.verify import verify_plan
+    from channelizer.cli import EXIT_INCONCLUSIVE, main
+    from channelizer.planning.plan import Plan
+
+    # An 8-bit output word cannot show 80 dB: a full-scale tone's quantisation SNR is
+    # 6.02 x 8 + 1.76 = 49.9 dB (Bennett 1948; common practice), so a bit-true sweep of
+    # an 80 dB plan ends at its own floor and must not say "does not meet".
+    plan = _plan_file(tmp_path, "o8.yaml", input_rate=1e6, bandwidth=20e3, output_bits=8)
+    v = verify_plan(Plan.from_yaml(open(plan).read()), bit_true=True, tones=20)
+    assert v.floor_limited and v.measured_rejection_db < 6.02 * 8 + 1.76 + 6
+    assert v.verdict == "inconclusive" and v.to_dict()["verdict"] == "inconclusive"
+    assert main(["verify", plan, "--bit-true", "--tones", "20"]) == EXIT_INCONCLUSIVE == 3
+    assert "inconclusive" in capsys.readouterr().out

@@ -191,7 +191,22 @@ class Verification:
     fit_samples: int
     seed: int = 0
     plan_sha256: str = ""
+    ripple_uncertainty_db: float = 0.0
     stages: tuple = field(default=(), repr=False, compare=False)
+
+    @property
+    def verdict(self):
+        """``'meets'``, ``'does not meet'``, or ``'inconclusive'``.
+
+        Inconclusive: a figure misses the spec only by what the measurement's own
+        floor can hide (the worst alias within 6 dB of its floor, the ripple
+        within its three-sigma uncertainty), and nothing misses it beyond that.
+        """
+        if self.meets_spec:
+            return "meets"
+        ripple_misses = self.measured_ripple_db - self.ripple_uncertainty_db > self.spec_ripple_db
+        rejection_misses = self.measured_rejection_db < self.spec_rejection_db and not self.floor_limited
+        return "does not meet" if ripple_misses or rejection_misses else "inconclusive"
 
     @property
     def passband(self):
@@ -211,6 +226,7 @@ class Verification:
                 d[f.name] = getattr(self, f.name)
         d["tones"] = [asdict(t) for t in self.tones]
         d["plan_predicted"] = dict(self.plan_predicted)
+        d["verdict"] = self.verdict
         return _finite(d)
 
     def to_json(self, *, indent=1):
@@ -231,8 +247,15 @@ class Verification:
             f"spec {db(self.spec_ripple_db)}; largest tone error {db(self.max_passband_error_db)}",
             f"alias rejection: measured {db(self.measured_rejection_db)}{bound} at {self.worst_alias_hz:.6g} Hz "
             f"(path {self.worst_alias_image}), predicted {db(self.predicted_rejection_db)}, spec {db(self.spec_rejection_db)}",
-            f"verdict: {'meets' if self.meets_spec else 'does not meet'} the spec",
+            f"verdict: {self.verdict_text()}",
         ]
+
+    def verdict_text(self):
+        """The verdict in words; an inconclusive one says why."""
+        if self.verdict == "inconclusive":
+            return ("inconclusive: the measurement's own noise floor is above what the spec asks "
+                    "(see floor_db); it neither meets nor misses the spec")
+        return f"{self.verdict} the spec"
 
 
 def _finite(obj):
@@ -470,6 +493,8 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
     ripple = float(pm.max() - pm.min())
     dc = next(r for r in pb if r.input_hz == 0.0)
     pb_err = float(max(abs(r.measured_db - r.predicted_db) for r in pb))
+    # each passband gain is known to 3 sigma of its fit: the ripple to twice that (common practice)
+    ripple_unc = 2.0 * 20.0 * math.log10(1.0 + 3.0 * 10.0 ** (max(r.floor_db for r in pb) / 20.0))
     if al:
         w = max(al, key=lambda r: r.measured_db)
         rejection = dc.measured_db - w.measured_db
@@ -511,6 +536,7 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
         fit_samples=int(fit_samples),
         seed=int(seed),
         plan_sha256=sha,
+        ripple_uncertainty_db=float(ripple_unc),
         stages=tuple(stages),
     )
 

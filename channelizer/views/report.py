@@ -88,7 +88,7 @@ def _reading(demo, annotations):
     )
     v = demo.verification
     if v is not None:
-        verdict = "meets" if v.meets_spec else "does not meet"
+        verdict = {"inconclusive": "is neither shown to meet nor to miss (measurement floor)"}.get(v.verdict, v.verdict)
         lines.append(
             f"Tone sweeps through the same code that extracted the channels measured {v.measured_rejection_db:.1f} dB of "
             f"alias rejection and {v.measured_ripple_db:.3f} dB of passband ripple: the chain {verdict} its targets."
