@@ -5,7 +5,6 @@ one ``error:`` line on stderr and exit status 2.
 """
 
 import argparse
-import contextlib
 import os
 import sys
 
@@ -413,18 +412,17 @@ _EXTRA_COMMANDS = [_register_extract, _register_survey, _register_verify, _regis
 
 def main(argv=None):
     """Run the command line; returns the exit status."""
+    from .io.console import ClosedPipeTolerant
+
     parser = build_parser()
     args = parser.parse_args(argv)
+    # a reader that stops early (| head) must not keep the command from writing its files
+    stdout = sys.stdout = ClosedPipeTolerant(sys.stdout)
     try:
         return args.func(args) or 0
     except ChannelizerError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
-    except BrokenPipeError:
-        # output piped into a program that stopped reading (e.g. head): not an error
-        with contextlib.suppress(OSError):
-            sys.stdout = open(os.devnull, "w")
-        return 0
     except KeyboardInterrupt:
         print("error: interrupted; no output was completed", file=sys.stderr)
         return 130
@@ -432,6 +430,9 @@ def main(argv=None):
         name = f"{exc.filename}: " if exc.filename else ""
         print(f"error: {name}{exc.strerror or exc}", file=sys.stderr)
         return 2
+    finally:
+        stdout.flush()
+        sys.stdout = stdout.stream
 
 
 if __name__ == "__main__":  # pragma: no cover

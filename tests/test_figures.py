@@ -98,3 +98,25 @@ def test_verify_limited_by_its_own_floor_is_inconclusive(tmp_path, capsys):
     assert v.verdict == "inconclusive" and v.to_dict()["verdict"] == "inconclusive"
     assert main(["verify", plan, "--bit-true", "--tones", "20"]) == EXIT_INCONCLUSIVE == 3
     assert "inconclusive" in capsys.readouterr().out
+
+
+def test_a_closed_pipe_loses_no_file(tmp_path):
+    # `cmd | head -1`: the reader closes the pipe after one line, and every later
+    # write to it fails with EPIPE (POSIX write(2); Python docs, signal module,
+    # "Note on SIGPIPE").  The files asked for must still be written.
+    import subprocess
+    import sys
+
+    yaml_path, png_path = tmp_path / "F.yaml", tmp_path / "P.png"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "channelizer", "plan", "--rate", "61.44M", "--bandwidth", "200k",
+         "--out", str(yaml_path), "--plot", str(png_path)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=tmp_path,
+    )
+    first = proc.stdout.readline()
+    proc.stdout.close()
+    err = proc.stderr.read()
+    assert proc.wait(timeout=300) == 0, err
+    assert first.startswith(b"Chain:")
+    assert yaml_path.stat().st_size > 0 and png_path.stat().st_size > 0
+    assert b"Traceback" not in err and b"Exception ignored" not in err
