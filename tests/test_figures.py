@@ -120,3 +120,32 @@ def test_a_closed_pipe_loses_no_file(tmp_path):
     assert first.startswith(b"Chain:")
     assert yaml_path.stat().st_size > 0 and png_path.stat().st_size > 0
     assert b"Traceback" not in err and b"Exception ignored" not in err
+
+
+def _append_chunk(path, cid, body):
+    """Append a RIFF chunk and fix the RIFF size (Microsoft/IBM RIFF specification, 1991)."""
+    import struct
+
+    with open(path, "r+b") as fh:
+        fh.seek(0, 2)
+        fh.write(cid + struct.pack("<I", len(body)) + body + b"\0" * (len(body) & 1))
+        end = fh.tell()
+        fh.seek(4)
+        fh.write(struct.pack("<I", end - 8))
+
+
+def test_wav_with_several_data_chunks_is_not_read_in_part(tmp_path):
+    import numpy as np
+    import scipy.io.wavfile
+
+    from channelizer.errors import ChannelizerError
+    from channelizer.io.captures import open_capture
+
+    iq = np.zeros((100, 2), dtype=np.int16)
+    path = tmp_path / "iq.wav"
+    scipy.io.wavfile.write(path, 48000, iq)  # one fmt and one data chunk (scipy.io.wavfile)
+    _append_chunk(path, b"LIST", b"INFOjunk")  # a non-data chunk after the data is fine
+    assert open_capture(str(path)).num_samples == 100
+    _append_chunk(path, b"data", np.ones((50, 2), dtype=np.int16).tobytes())
+    with pytest.raises(ChannelizerError, match="2 data chunks"):
+        open_capture(str(path))
