@@ -5,6 +5,7 @@ one ``error:`` line on stderr and exit status 2.
 """
 
 import argparse
+import math
 import os
 import sys
 
@@ -174,12 +175,20 @@ def _cmd_extract(args):
     for ch in result.channels:
         centre = format_hz(ch.center_frequency) if ch.center_frequency is not None else f"{ch.offset:+g} Hz"
         flagged = sum(1 for a in ch.alias_audit if a["above_noise"])
+        power = f"{ch.mean_power_dbfs:>7.2f}" if math.isfinite(ch.mean_power_dbfs) else f"{'n/a':>7}"
         print(
             f"{ch.name:<16} {centre:>16} {format_hz(ch.output_rate, 'sps'):>12} {ch.samples:>10} "
-            f"{ch.mean_power_dbfs:>7.2f} dBFS {ch.group_delay_output_samples:>9.2f}  "
+            f"{power} dBFS {ch.group_delay_output_samples:>9.2f}  "
             f"{len(ch.alias_audit)} ({flagged} above the output noise)"
         )
+    print("power: mean after each chain has settled (from output sample power_from_sample in the summary)")
     print(f"summary written to {result.summary_path}")
+    for ch in result.channels:
+        if ch.clipped:
+            # the largest component that fits a 16-bit word is 32767/32768 of full scale
+            fit = 20 * math.log10((1 - 2.0**-15) / ch.peak)
+            print(f"warning: channel {ch.name}: {ch.clipped} of {ch.samples} samples clipped at the {args.output_format} "
+                  f"rails; a gain of {fit:.1f} dB before writing would fit them", file=sys.stderr)
     return 0
 
 

@@ -149,3 +149,70 @@ def test_wav_with_several_data_chunks_is_not_read_in_part(tmp_path):
     _append_chunk(path, b"data", np.ones((50, 2), dtype=np.int16).tobytes())
     with pytest.raises(ChannelizerError, match="2 data chunks"):
         open_capture(str(path))
+
+
+def _raw_tone(tmp_path, *, amplitude, n, fs):
+    """A complex tone at 0 Hz offset stored as raw cf32_le (a complex tone of amplitude a is
+    20 log10 a dBFS: common practice)."""
+    import numpy as np
+
+    path = tmp_path / "tone.cf32"
+    (np.full(n, amplitude, dtype=np.complex64)).tofile(path)
+    return str(path)
+
+
+def _extract(tmp_path, capture, plan, fs, *extra):
+    import json
+
+    from channelizer.cli import main
+
+    out = tmp_path / "out"
+    rc = main(["extract", capture, "--input-format", "cf32_le", "--rate", str(fs), "--plan", plan,
+               "--channel", "c=+0", "--out", str(out), "--no-plots", "--quiet", *extra])
+    return rc, json.loads((out / "summary.json").read_text())["channels"][0]
+
+
+def test_clipping_is_said_on_stderr_with_the_gain_that_fits(tmp_path, capsys):
+    import math
+
+    # A tone of amplitude 4 (12.04 dB over full scale: 20 log10 4) at the channel centre
+    # passes the unit-DC-gain chain and saturates every ci16 sample after start-up.
+    plan = _plan_file(tmp_path, "p.yaml", input_rate=1e6, bandwidth=20e3)
+    cap = _raw_tone(tmp_path, amplitude=4.0, n=100_000, fs=1e6)
+    rc, ch = _extract(tmp_path, cap, plan, 1e6, "--output-format", "ci16_le")
+    err = capsys.readouterr().err
+    assert rc == 0 and ch["clipped_samples"] > 0.9 * ch["samples"]
+    m = re.search(r"(\d+) of (\d+) samples clipped.*gain of (-?[\d.]+) dB", err)
+    assert m and int(m.group(1)) == ch["clipped_samples"]
+    # the peak, start-up overshoot included, from an independent cascade of
+    # scipy.signal.upfirdn over the plan's stage responses (CIC as its boxcar power)
+    import numpy as np
+    import scipy.signal
+
+    from channelizer.planning.plan import Plan
+
+    y = np.full(100_000, 4.0)
+    for st in Plan.from_yaml(open(plan).read()).stages:
+        taps = st.taps() if callable(st.taps) else np.asarray(st.taps)
+        y = scipy.signal.upfirdn(taps, y, 1, st.decimation)[: len(y) // st.decimation]
+    fit = 20 * math.log10((1 - 2.0**-15) / np.abs(y).max())
+    assert float(m.group(3)) == pytest.approx(fit, abs=0.06)
+    assert fit <= -20 * math.log10(4.0)  # never less than the tone's own 12.04 dB
+
+
+def test_mean_power_is_the_settled_power(tmp_path):
+    # A steady tone of amplitude 0.1 at the channel centre is -20 dBFS (20 log10 0.1);
+    # the chain has unit gain at DC, so once settled the output is -20 dBFS exactly.  A
+    # capture only a few impulse responses long makes the start-up weigh in the mean.
+    from channelizer.planning.plan import Plan
+
+    plan = _plan_file(tmp_path, "p.yaml", input_rate=1e6, bandwidth=20e3)
+    length, step = 0, 1  # impulse response length in input samples: taps at each stage's rate
+    for st in Plan.from_yaml(open(plan).read()).stages:
+        length += (st.num_taps - 1) * step
+        step *= st.decimation
+    n = 3 * length
+    cap = _raw_tone(tmp_path, amplitude=0.1, n=n, fs=1e6)
+    rc, ch = _extract(tmp_path, cap, plan, 1e6)
+    assert rc == 0 and ch["power_from_sample"] > 0
+    assert ch["mean_power_dbfs"] == pytest.approx(-20.0, abs=0.01)

@@ -66,9 +66,9 @@ import numpy as np
 
 from ..errors import ChannelizerError
 from ..planning.plan import Plan
-from ..planning.response import fold, predict
+from ..planning.response import fold, impulse_seconds, predict
 from ..planning.stages import chain_rates
-from .tones import _alias_tones, _db, _impulse_seconds, _noise_gain, _passband_tones, _path_gain, _resampler
+from .tones import _alias_tones, _db, _noise_gain, _passband_tones, _path_gain, _resampler
 
 __all__ = ["ToneMeasurement", "Verification", "verify_plan"]
 
@@ -431,7 +431,7 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
     fs_out = chain_rates(stages, fs=fs)[-1]
     up, fs_r = _resampler(stages, fs)
 
-    settle = int(math.ceil(_impulse_seconds(stages, fs) * fs_out)) + 2
+    settle = int(math.ceil(impulse_seconds(stages, fs=fs) * fs_out)) + 2
     n_out = settle + fit_samples
     n_in = int(math.ceil((n_out + 1) * fs / fs_out)) + 1  # one spare output against rounding of the rates
 

@@ -15,7 +15,7 @@ import numpy as np
 
 from .stages import ResamplerStage, chain_rates
 
-__all__ = ["composite_response", "alias_intervals", "landing_intervals", "resampler_of", "image_step", "Prediction", "predict", "fold"]
+__all__ = ["composite_response", "normalised_response", "impulse_seconds", "alias_intervals", "landing_intervals", "resampler_of", "image_step", "Prediction", "predict", "fold"]
 
 
 def fold(f, fs):
@@ -50,6 +50,33 @@ def composite_response(stages, f, *, fs, image=0):
             shift = image * rate
         h = h * st.response(f + shift, fs=rate)
     return h
+
+
+def normalised_response(stages, f, *, fs, image=0):
+    """The composite response over the rational stage's interpolation factor L.
+
+    A rational stage's filter has gain L (it follows L-1 inserted zeros), so the
+    composite of a plan with one has DC gain L; divided by L, every path reads in
+    the units of the chain's output (unit gain at DC).  Every figure shown to a
+    user (predictions, verify, the alias audit, the plots) uses this one.
+
+    References
+    ----------
+    A. V. Oppenheim and R. W. Schafer, *Discrete-Time Signal Processing*, 3rd ed.,
+    2010, sec. 4.6.2 (interpolation filter of gain L).
+    """
+    res, _ = resampler_of(stages, fs=fs)
+    up = res.interpolation if res is not None else 1
+    return composite_response(stages, f, fs=fs, image=image) / up
+
+
+def impulse_seconds(stages, *, fs):
+    """Length of the chain's impulse response in seconds (every stage's taps at their own rate)."""
+    total = 0.0
+    for st, rate in zip(stages, chain_rates(stages, fs=fs)):
+        tap_rate = rate * st.interpolation if isinstance(st, ResamplerStage) else rate
+        total += (st.num_taps - 1) / tap_rate
+    return total
 
 
 def resampler_of(stages, *, fs):

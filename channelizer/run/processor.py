@@ -21,6 +21,7 @@ from ..io.atomic import FileSet, write_text_atomic
 from ..errors import ChannelizerError
 from ..io.names import safe_output_name
 from ..dsp.spectrum import WelchAccumulator
+from ..planning.response import impulse_seconds
 from ..planning.stages import chain_rates
 from ..io.progress import ProgressBar
 
@@ -72,6 +73,8 @@ class ChannelResult:
     plan_id: str
     files: list
     clipped: int = 0
+    peak: float = 0.0  # largest |I| or |Q| at the output, full scale 1
+    settled_from: int = 0  # output sample the mean power starts at (the chain's length)
     spectrum: object = None
     alias_audit: list = field(default_factory=list)
 
@@ -227,8 +230,11 @@ class _Pass:
             self.out_spectra.append(
                 WelchAccumulator(fs=r.plan.output_rate, nperseg=nper, center_frequency=centre + r.offset) if ok else None
             )
-        self.power = [0.0] * len(requests)
+        self.power = [0.0] * len(requests)  # over the settled outputs
         self.count = [0] * len(requests)
+        # the mean power skips the chain's start-up: its impulse response length in outputs
+        self.settle = [int(math.ceil(impulse_seconds(r.plan.stages, fs=fs) * r.plan.output_rate)) for r in requests]
+        self.peak = [0.0] * len(requests)
         self.writers = []
 
     def _outputs(self, i, block):
@@ -286,8 +292,10 @@ class _Pass:
                 for k, y in enumerate(self._outputs(i, block)):
                     if y.size:
                         self.writers[k].write(y)
-                        self.power[k] += float(np.vdot(y, y).real)
+                        settled = y[max(0, self.settle[k] - self.count[k]):]
+                        self.power[k] += float(np.vdot(settled, settled).real)
                         self.count[k] += y.size
+                        self.peak[k] = max(self.peak[k], float(np.abs(y.view(y.real.dtype)).max()))
                         if self.out_spectra[k] is not None:
                             self.out_spectra[k].update(y)
                 done += block.shape[0]
@@ -300,6 +308,7 @@ class _Pass:
         results = []
         for k, (r, name, w) in enumerate(zip(self.requests, self.names, self.writers)):
             spec = self.out_spectra[k]
+            n_settled = self.count[k] - self.settle[k]
             results.append(
                 ChannelResult(
                     name=name,
@@ -307,11 +316,13 @@ class _Pass:
                     center_frequency=None if centre is None else float(centre + r.offset),
                     output_rate=float(r.plan.output_rate),
                     samples=int(self.count[k]),
-                    mean_power_dbfs=_dbfs(self.power[k] / self.count[k]) if self.count[k] else -math.inf,
+                    mean_power_dbfs=_dbfs(self.power[k] / n_settled) if n_settled > 0 else math.nan,
                     group_delay_output_samples=chain_delay_output_samples(r.plan.stages, fs=fs),
                     plan_id=r.plan_id,
                     files=[os.path.basename(w.data_path), os.path.basename(w.meta_path)],
                     clipped=int(w.clipped),
+                    peak=self.peak[k],
+                    settled_from=self.settle[k],
                     spectrum=spec.result() if spec is not None and spec.segments else None,
                 )
             )
@@ -339,7 +350,9 @@ def write_summary(result, out_dir, *, extra=None, fileset=None):
                 "group_delay_output_samples": round(c.group_delay_output_samples, 6),
                 "plan_sha256": c.plan_id,
                 "files": c.files,
+                "power_from_sample": c.settled_from,
                 "clipped_samples": c.clipped,
+                "peak_component": round(c.peak, 6),
                 "alias_audit": c.alias_audit,
             }
             for c in result.channels
