@@ -216,3 +216,23 @@ def test_mean_power_is_the_settled_power(tmp_path):
     rc, ch = _extract(tmp_path, cap, plan, 1e6)
     assert rc == 0 and ch["power_from_sample"] > 0
     assert ch["mean_power_dbfs"] == pytest.approx(-20.0, abs=0.01)
+
+
+def test_bit_true_dc_offset_is_a_spur_not_an_alias(tmp_path):
+    # 8 Msps -> 8 ksps, 3 kHz, 90 dB: alias tones such as 415995 Hz land 5 Hz from DC
+    # (415995 - 52 x 8000 = -5, arithmetic), on top of the integer path's constant offset.
+    # Hogenauer's pruning floors the first integrator's input by d1 = 3 bits: a mean of
+    # -(2^3 - 1)/2 = -3.5 input LSBs, 20 log10(3.5 / 32768) = -79.4 dBFS at most once the
+    # roundings after it are added (Hogenauer 1981, truncation error mean).
+    from channelizer.checks.verify import verify_plan
+    from channelizer.planning.plan import Plan
+
+    path = _plan_file(tmp_path, "p.yaml", input_rate=8e6, bandwidth=3e3, output_rate=8e3, rejection_db=90.0)
+    v = verify_plan(Plan.from_yaml(open(path).read()), bit_true=True)
+    near = [t for t in v.aliases if abs(t.landing_hz) < 10.0]
+    assert near, "the sweep must hold a tone landing next to DC"
+    for t in near:  # predicted: the quantised taps' response (scipy.signal.freqz per stage)
+        assert t.measured_db <= max(t.predicted_db, t.floor_db) + 3.0 < -90.0
+    assert v.verdict == "meets" and v.measured_rejection_db >= 90.0
+    assert v.dc_spur_dbfs is not None and -120.0 < v.dc_spur_dbfs < -79.4 + 1.0
+    assert any(line.startswith("DC spur:") for line in v.summary_lines())

@@ -192,6 +192,7 @@ class Verification:
     seed: int = 0
     plan_sha256: str = ""
     ripple_uncertainty_db: float = 0.0
+    dc_spur_dbfs: float | None = None
     stages: tuple = field(default=(), repr=False, compare=False)
 
     @property
@@ -247,6 +248,9 @@ class Verification:
             f"spec {db(self.spec_ripple_db)}; largest tone error {db(self.max_passband_error_db)}",
             f"alias rejection: measured {db(self.measured_rejection_db)}{bound} at {self.worst_alias_hz:.6g} Hz "
             f"(path {self.worst_alias_image}), predicted {db(self.predicted_rejection_db)}, spec {db(self.spec_rejection_db)}",
+        ] + ([f"DC spur: {self.dc_spur_dbfs:.1f} dBFS at 0 Hz (offset of the integer path's roundings; "
+               "taken out of tones landing there, not counted as an alias)"]
+             if self.dc_spur_dbfs is not None else []) + [
             f"verdict: {self.verdict_text()}",
         ]
 
@@ -451,7 +455,7 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
         floor_abs = amp * 10.0 ** (FLOAT_FLOOR_DB / 20.0)
     # a path that lands this close to 0 Hz cannot be told from an offset at the output
     near_dc = 2.0 * fs_out / fit_samples
-    rows, offsets = [], []
+    rows, offsets, on_dc_runs = [], [], []
     for (f, k, worst, band), phase in zip(plan_tones, phases):
         y = runner.run(f / fs, n_in, phase, rng)
         if y.size < n_out:
@@ -466,13 +470,23 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
         sep = bool(np.min(np.abs(freqs)) > near_dc)
         a, err = _fit(y, freqs, fs_out=fs_out, start=settle, dc=bit_true and sep)
         if bit_true and sep:
-            offsets.append(abs(a[-1]))
+            offsets.append(complex(a[-1]))
         u = int(inverse[k])
         same = np.flatnonzero(inverse == u)
         h = sum(_path_gain(stages, np.array([f]), fs=fs, image=int(j), up=up)[0] for j in same)
         dc_landing = abs(freqs[u]) <= near_dc
-        rows.append((f, k, float(freqs[u]), band, abs(h), abs(a[u]), max(err, floor_abs), worst, dc_landing))
-    offset = float(np.median(offsets)) if offsets else 0.0
+        if bit_true and dc_landing:
+            on_dc_runs.append((len(rows), y, freqs, u))
+        rows.append([f, k, float(freqs[u]), band, abs(h), abs(a[u]), max(err, floor_abs), worst, dc_landing])
+    # The offset is a DC spur of the integer path, not an alias: a tone landing next to
+    # 0 Hz is fitted again with the offset measured on all the other tones taken out,
+    # and the offset's own uncertainty (its spread over sqrt(n) tones) is that tone's floor.
+    dc_spur = complex(np.median(np.real(offsets)), np.median(np.imag(offsets))) if offsets else 0j
+    spur_err = float(np.std(offsets) / math.sqrt(len(offsets))) if len(offsets) > 1 else abs(dc_spur)
+    for i, y, freqs, u in on_dc_runs:
+        a, err = _fit(y - dc_spur, freqs, fs_out=fs_out, start=settle)
+        rows[i][5], rows[i][6] = abs(a[u]), max(err, floor_abs)
+    offset = spur_err
     records = [
         ToneMeasurement(
             input_hz=float(f),
@@ -537,6 +551,7 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
         seed=int(seed),
         plan_sha256=sha,
         ripple_uncertainty_db=float(ripple_unc),
+        dc_spur_dbfs=(20.0 * math.log10(abs(dc_spur)) if abs(dc_spur) > 0 else None) if bit_true else None,
         stages=tuple(stages),
     )
 
