@@ -14,7 +14,7 @@ import math
 
 import numpy as np
 
-from ..planning.response import alias_intervals, composite_response, fold, image_step
+from ..planning.response import alias_intervals, fold, image_step, normalised_response
 from ..dsp.detection import detect_signals, estimate_noise_floor
 
 __all__ = ["audit_channel"]
@@ -63,7 +63,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
             m = (x >= a) & (x <= b)
             if not np.any(m):
                 continue
-            h2 = np.abs(composite_response(plan.stages, x[m], fs=fs, image=k)) ** 2
+            h2 = np.abs(normalised_response(plan.stages, x[m], fs=fs, image=k)) ** 2
             total += float(np.sum(dens[m] * h2) * bin_hz)
             att = -10 * math.log10(max(float(h2.max()), 1e-300))
             if att < worst_att:

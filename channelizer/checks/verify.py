@@ -10,7 +10,7 @@ per image path ``k``, at ``fold(f + k fs_r, fs_out)`` with complex amplitude
 2010, sec. 4.6-4.7; :mod:`channelizer.response`).  A least-squares fit of those
 exponentials to the settled output gives each path's gain exactly, whatever the
 number of samples, so the measured gain is compared tone by tone with
-``|H_k(f)| / L`` from :func:`channelizer.response.composite_response`.
+``|H_k(f)| / L`` from :func:`channelizer.planning.response.normalised_response`.
 
 Tones
 -----
@@ -247,7 +247,7 @@ class Verification:
             f"passband ripple: measured {db(self.measured_ripple_db)}, predicted {db(self.predicted_ripple_db)}, "
             f"spec {db(self.spec_ripple_db)}; largest tone error {db(self.max_passband_error_db)}",
             f"alias rejection: measured {db(self.measured_rejection_db)}{bound} at {self.worst_alias_hz:.6g} Hz "
-            f"(path {self.worst_alias_image}), predicted {db(self.predicted_rejection_db)}, spec {db(self.spec_rejection_db)}",
+            f"({'alias' if self.worst_alias_image == 0 else f'image path {self.worst_alias_image} of the rational stage'}), predicted {db(self.predicted_rejection_db)}, spec {db(self.spec_rejection_db)}",
         ] + ([f"DC spur: {self.dc_spur_dbfs:.1f} dBFS at 0 Hz (offset of the integer path's roundings; "
                "taken out of tones landing there, not counted as an alias)"]
              if self.dc_spur_dbfs is not None else []) + [

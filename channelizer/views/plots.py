@@ -4,7 +4,7 @@ import math
 
 import numpy as np
 
-from ..planning.response import alias_intervals, composite_response, fold, image_step
+from ..planning.response import alias_intervals, fold, image_step, normalised_response
 from ..planning.stages import chain_rates
 from .table import stage_rows
 
@@ -63,8 +63,9 @@ def plot_plan(plan, path, *, title=None):
     rates = chain_rates(plan.stages, fs=fs)
     rows, _ = stage_rows(plan)
     for st, rate, row in zip(plan.stages, rates, rows):
-        ax.plot(f, _db(st.response(f, fs=rate)), lw=0.6, alpha=0.45, label=f"{row['stage']}: {row['kind']} {row['ratio']}")
-    h = composite_response(plan.stages, f, fs=fs)
+        # a rational stage's filter has gain L: drawn over L, like the composite
+        ax.plot(f, _db(st.response(f, fs=rate) / st.interpolation), lw=0.6, alpha=0.45, label=f"{row['stage']}: {row['kind']} {row['ratio']}")
+    h = normalised_response(plan.stages, f, fs=fs)
     ax.plot(f, _db(h), color="black", lw=1.4, label="composite")
     mask = np.zeros(f.shape, dtype=bool)
     for lo, hi, _ in intervals:
@@ -87,7 +88,7 @@ def plot_plan(plan, path, *, title=None):
     for k in sorted({k for _, _, k in intervals}):
         bands = [(lo, hi) for lo, hi, kk in intervals if kk == k]
         x = np.concatenate([np.append(np.linspace(lo, hi, 48), np.nan) for lo, hi in bands])
-        att = _db(composite_response(plan.stages, np.nan_to_num(x), fs=fs, image=k))
+        att = _db(normalised_response(plan.stages, np.nan_to_num(x), fs=fs, image=k))
         land = fold(x + k * step, fs_out)
         # a band straddling the output band's edge would draw across it: break the line there
         jump = np.abs(np.diff(land, prepend=land[:1])) > fs_out / 2
@@ -98,7 +99,7 @@ def plot_plan(plan, path, *, title=None):
         bx.plot(np.concatenate(xs), np.concatenate(ys), color="tab:blue", lw=0.6, alpha=0.5)
     worst = plan.predicted.get("alias_rejection_db", float("nan"))
     pb = np.linspace(-fs_out / 2, fs_out / 2, 1201)
-    bx.plot(pb, _db(composite_response(plan.stages, pb, fs=fs)), color="black", lw=1.4, label="direct path (no folding)")
+    bx.plot(pb, _db(normalised_response(plan.stages, pb, fs=fs)), color="black", lw=1.4, label="direct path (no folding)")
     bx.plot([], [], color="tab:blue", lw=0.8, label=f"{len(intervals)} folded alias bands")
     bx.axhline(-target, color="tab:red", ls="--", lw=1, label=f"target -{target:g} dB")
     bx.axvspan(-fp, fp, color="tab:green", alpha=0.08, label="passband")
