@@ -160,6 +160,7 @@ def _cmd_extract(args):
         progress=not args.quiet,
         nonfinite="zero" if args.zero_nonfinite else "error",
         block_size=args.block_size,
+        audit_resolution=args.audit_resolution,
     )
     from .units import format_hz
 
@@ -210,6 +211,7 @@ def _register_extract(sub):
     e.add_argument("--bit-true", action="store_true", help="integer arithmetic as hardware would do it")
     e.add_argument("--no-plots", action="store_true", help="skip overview.png and the per-channel plots")
     e.add_argument("--zero-nonfinite", action="store_true", help="replace NaN/inf samples by zero instead of refusing")
+    e.add_argument("--audit-resolution", type=_rate("audit resolution"), default=None, metavar="HZ", help="bin spacing of the input spectrum the alias audit reads (default: from the narrowest channel, bandwidth / 32)")
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
     e.add_argument("--quiet", action="store_true", help="no progress bar")
     e.set_defaults(func=_cmd_extract)

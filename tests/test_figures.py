@@ -320,3 +320,51 @@ def test_alias_audit_level_through_a_rational_plan_matches_an_upfirdn_cascade(tm
     audit = json.loads((out / "summary.json").read_text())["channels"][0]["alias_audit"]
     (entry,) = [e for e in audit if abs(e["signal_center_hz"] - f_t) < 2e3]
     assert entry["output_level_dbfs"] == pytest.approx(expected, abs=1.5)
+
+
+def test_alias_audit_resolves_narrow_channels_and_clips_attenuation(tmp_path):
+    # A 20 kHz channel at 61.44 Msps: at the old rate/4096 = 15 kHz bins two signals
+    # 15 kHz apart share a bin and merge; resolving them needs bins a small fraction
+    # of the spacing (a Hann window's main lobe is 4 bins wide: Harris 1978, Table 1).
+    import json
+
+    import numpy as np
+    import scipy.signal
+
+    from channelizer.checks.alias_audit import format_attenuation
+    from channelizer.cli import main
+    from channelizer.planning.plan import Plan
+    from channelizer.planning.stages import CicStage
+
+    fs, n = 61.44e6, 1_000_000
+    t = np.arange(n)
+    x = 0.1 * np.exp(2j * np.pi * 200e3 / fs * t) + 0.1 * np.exp(2j * np.pi * 215e3 / fs * t)
+    x += 0.5 * np.exp(2j * np.pi * 5e6 / fs * t)
+    x += np.random.default_rng(0).normal(0, 1e-3, (n, 2)) @ np.array([1, 1j])
+    x.astype(np.complex64).tofile(tmp_path / "cap.cf32")
+
+    def audit(*extra):
+        out = tmp_path / f"out{len(extra)}"
+        assert main(["extract", str(tmp_path / "cap.cf32"), "--input-format", "cf32_le", "--rate", "61.44M",
+                     "--plan", RATIONAL_PLAN, "--channel", "c=+0", "--out", str(out), "--no-plots", "--quiet",
+                     *extra]) == 0
+        return json.loads((out / "summary.json").read_text())
+
+    doc = audit()
+    assert doc["audit_resolution_hz"] <= 20e3 / 16
+    entries = doc["channels"][0]["alias_audit"]
+    centres = sorted(e["signal_center_hz"] for e in entries)
+    assert len(centres) == 3 and abs(centres[0] - 200e3) < 1e3 and abs(centres[1] - 215e3) < 1e3
+
+    # The CIC alone (N=7, R=1024) attenuates 5 MHz by far more than 150 dB (its
+    # impulse response through scipy.signal.freqz), beyond what float32 samples
+    # (2**-24 = -144.5 dB, IEEE 754) can show: the audit must say "> 150 dB".
+    (cic,) = [s for s in Plan.from_yaml(open(RATIONAL_PLAN).read()).stages if isinstance(s, CicStage)]
+    _, h = scipy.signal.freqz(cic.taps(), worN=[5e6], fs=fs)
+    assert -20 * np.log10(abs(h[0])) > 150
+    (far,) = [e for e in entries if abs(e["signal_center_hz"] - 5e6) < 2e3]
+    assert far["attenuation_db"] == 150.0 and far["attenuation_beyond_ceiling"]
+    assert format_attenuation(far) == "> 150 dB"
+
+    # --audit-resolution is honoured (61.44 MHz / 15 kHz = 4096 bins exactly)
+    assert audit("--audit-resolution", "15k")["audit_resolution_hz"] == 15e3

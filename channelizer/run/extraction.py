@@ -42,6 +42,7 @@ def run_extraction(
     nonfinite="error",
     block_size=None,
     audit=True,
+    audit_resolution=None,
 ):
     """Extract ``entries`` (ChannelEntry) from an open capture into ``out_dir``.
 
@@ -61,6 +62,8 @@ def run_extraction(
         plan, ident = plans[path]
         requests.append(ChannelRequest(e.name, resolve_offset(e, capture.center_frequency), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
+    if audit_resolution is not None:
+        kw["audit_resolution"] = audit_resolution
     files = FileSet()  # the recordings and the summary appear together, or not at all
     try:
         result = _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)

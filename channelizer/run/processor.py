@@ -148,6 +148,7 @@ def extract_channels(
     progress=False,
     spectra=True,
     fileset=None,
+    audit_resolution=None,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -172,6 +173,9 @@ def extract_channels(
         Leave the recordings uncommitted in this set (the caller adds the summary
         and commits, so that all outputs of a run appear together); by default
         they are committed here once every channel is complete.
+    audit_resolution : float, optional
+        Bin spacing in Hz of the input spectrum the alias audit reads; by default
+        chosen from the channels' bandwidths (:func:`channelizer.checks.alias_audit.audit_resolution`).
 
     Returns
     -------
@@ -188,7 +192,8 @@ def extract_channels(
     if bit_true and not capture.datatype.is_integer:
         raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
     _prepare_out_dir(out_dir)
-    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra)
+    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
+                audit_resolution=audit_resolution)
     own_set = fileset is None
     files = FileSet() if own_set else fileset
     t0 = time.perf_counter()
@@ -206,7 +211,7 @@ def extract_channels(
 class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
-    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra):
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None):
         self.capture, self.requests, self.names = capture, requests, names
         self.bit_true, self.block_size = bit_true, block_size
         fs = capture.sample_rate
@@ -221,7 +226,11 @@ class _Pass:
         n_total = capture.num_samples
         n_blocks = max(1, -(-n_total // block_size))
         self.stride = max(1, -(-n_blocks * block_size // OVERVIEW_SAMPLES))
-        self.overview = WelchAccumulator(fs=fs, nperseg=4096, center_frequency=centre) if spectra else None
+        if audit_resolution is None:
+            from ..checks.alias_audit import audit_resolution as default_resolution
+
+            audit_resolution = default_resolution([r.plan.bandwidth for r in requests], fs=fs, samples=n_total)
+        self.overview = WelchAccumulator(fs=fs, resolution=audit_resolution, center_frequency=centre) if spectra else None
         self.out_spectra = []
         for r in requests:
             n_out = int(n_total * r.plan.output_rate / fs)
@@ -335,6 +344,7 @@ def write_summary(result, out_dir, *, extra=None, fileset=None):
     cap = result.capture
     doc = {
         "capture": os.path.basename(cap.path),
+        "audit_resolution_hz": None if result.overview is None else result.overview.bin_hz,
         "sample_rate": cap.sample_rate,
         "center_frequency": cap.center_frequency,
         "input_samples": result.input_samples,

@@ -4,6 +4,7 @@ import base64
 import html
 import os
 
+from ..checks.alias_audit import format_attenuation
 from ..io.atomic import write_text_atomic
 from .table import stage_rows
 from ..units import format_hz
@@ -101,7 +102,7 @@ def _reading(demo, annotations):
         margin = (a["output_noise_floor_dbfs_per_hz"] or 0) - a["output_level_dbfs_per_hz"]
         lines.append(
             f"The strongest signal folding onto a channel is the one at {format_hz(a['signal_center_hz'])} "
-            f"({a['signal_power_dbfs']:.1f} dBFS) onto {name}: the chain attenuates it by {a['attenuation_db']:.0f} dB, "
+            f"({a['signal_power_dbfs']:.1f} dBFS) onto {name}: the chain attenuates it by {format_attenuation(a)}, "
             f"so it arrives {margin:.0f} dB below that channel's noise floor."
         )
     if flagged:
@@ -168,7 +169,7 @@ def write_report(demo, *, annotations=()):
             parts.append(
                 _table(
                     ["folding signal", "its power", "attenuation", "arrives at", "output noise", "lands at"],
-                    [[format_hz(a["signal_center_hz"]), f"{a['signal_power_dbfs']:.1f} dBFS", f"{a['attenuation_db']:.1f} dB",
+                    [[format_hz(a["signal_center_hz"]), f"{a['signal_power_dbfs']:.1f} dBFS", format_attenuation(a),
                       f"{a['output_level_dbfs_per_hz']:.1f} dBFS/Hz",
                       "-" if a["output_noise_floor_dbfs_per_hz"] is None else f"{a['output_noise_floor_dbfs_per_hz']:.1f} dBFS/Hz",
                       f"{a['landing_offset_hz']:+.0f} Hz"]
