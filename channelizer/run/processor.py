@@ -230,6 +230,8 @@ class _Pass:
             from ..checks.alias_audit import audit_resolution as default_resolution
 
             audit_resolution = default_resolution([r.plan.bandwidth for r in requests], fs=fs, samples=n_total)
+        if self.stride > 1:  # blocks apart in the file: a segment must fit in one block
+            audit_resolution = max(audit_resolution, fs / 2 ** int(math.log2(block_size)))
         self.overview = WelchAccumulator(fs=fs, resolution=audit_resolution, center_frequency=centre) if spectra else None
         self.out_spectra = []
         for r in requests:
@@ -246,18 +248,23 @@ class _Pass:
         self.peak = [0.0] * len(requests)
         self.writers = []
 
+    def _overview_update(self, block):
+        if self.stride > 1:
+            self.overview.restart()  # the previous block fed was not the one before this
+        self.overview.update(block)
+
     def _outputs(self, i, block):
         """Every channel's output for one input block (complex64, full-scale units)."""
         if not self.bit_true:
             if self.overview is not None and i % self.stride == 0:
-                self.overview.update(block)
+                self._overview_update(block)
             return self.bank.process(block)
         scale_in = 2.0 ** (self.capture.datatype.bits - 1)
         raw = block.astype(np.int64)
         if self.capture.datatype.kind == "u":
             raw = raw - int(scale_in)
         if self.overview is not None and i % self.stride == 0:
-            self.overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
+            self._overview_update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
         outs = []
         for runner in self.runners:
             y = runner.process(raw)
