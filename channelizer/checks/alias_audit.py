@@ -99,7 +99,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
         x = fold(psd.freqs[sel] - chan_centre, fs)
         dens = psd.psd[sel]
         total = 0.0
-        worst_att, land = math.inf, 0.0
+        worst_att, land, path = math.inf, 0.0, 0
         for a, b, k in intervals:
             m = (x >= a) & (x <= b)
             if not np.any(m):
@@ -111,7 +111,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
             edge_hi = min(b, float(x[m].max()) + bin_hz / 2)
             att = -_worst_gain_db(plan.stages, edge_lo, edge_hi, fs=fs, image=k)
             if att < worst_att:
-                worst_att = att
+                worst_att, path = att, k
                 land = float(fold(np.mean(x[m]) + k * step, plan.output_rate))
         if total <= 0:
             continue
@@ -129,6 +129,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
             "output_level_dbfs": round(level, 2),
             "output_level_dbfs_per_hz": round(density, 2),
             "landing_offset_hz": round(land, 1),
+            "path": "alias" if path == 0 else f"image {path} of the rational stage",
             "output_noise_floor_dbfs_per_hz": None if noise_out is None else round(noise_out, 2),
             "above_noise": bool(density > noise_out),
         }
