@@ -5,7 +5,7 @@ one ``error:`` line on stderr and exit status 2.
 """
 
 import argparse
-import contextlib
+import math
 import os
 import sys
 
@@ -17,6 +17,9 @@ from .errors import ChannelizerError
 from .units import parse_frequency
 
 __all__ = ["main", "build_parser"]
+
+#: Exit status of a check whose measurement cannot decide (0 meets, 1 misses, 2 bad input).
+EXIT_INCONCLUSIVE = 3
 
 
 def _rate(name):
@@ -163,6 +166,7 @@ def _cmd_extract(args):
         nonfinite="zero" if args.zero_nonfinite else "error",
         block_size=args.block_size,
         trim_settling=args.trim_settling,
+        audit_resolution=args.audit_resolution,
     )
     from .units import format_hz
 
@@ -178,12 +182,20 @@ def _cmd_extract(args):
     for ch in result.channels:
         centre = format_hz(ch.center_frequency, digits=10) if ch.center_frequency is not None else format_hz(ch.offset, signed=True)
         flagged = sum(1 for a in ch.alias_audit if a["above_noise"])
+        power = f"{ch.mean_power_dbfs:>7.2f}" if math.isfinite(ch.mean_power_dbfs) else f"{'n/a':>7}"
         print(
             f"{ch.name:<16} {centre:>16} {format_hz(ch.output_rate, 'sps'):>12} {ch.samples:>10} "
-            f"{ch.mean_power_dbfs:>7.2f} dBFS {ch.group_delay_output_samples:>9.2f}  "
+            f"{power} dBFS {ch.group_delay_output_samples:>9.2f}  "
             f"{len(ch.alias_audit)} ({flagged} above the output noise)"
         )
+    print("power: mean after each chain has settled (from output sample power_from_sample in the summary)")
     print(f"summary written to {result.summary_path}")
+    for ch in result.channels:
+        if ch.clipped:
+            # the largest component that fits a 16-bit word is 32767/32768 of full scale
+            fit = 20 * math.log10((1 - 2.0**-15) / ch.peak)
+            print(f"warning: channel {ch.name}: {ch.clipped} of {ch.samples} samples clipped at the {args.output_format} "
+                  f"rails; a gain of {fit:.1f} dB before writing would fit them", file=sys.stderr)
     return _extract_warnings(result, fail_on_alias=args.fail_on_alias)
 
 
@@ -224,6 +236,7 @@ def _register_extract(sub):
     e.add_argument("--fail-on-alias", action="store_true", help="exit with status 1 when a signal folds onto a channel above its output noise floor (a warning either way)")
     e.add_argument("--trim-settling", action="store_true", help="leave out each channel's start-up samples (the chain's settling length) instead of marking them with an annotation")
     e.add_argument("--zero-nonfinite", action="store_true", help="replace NaN/inf samples by zero instead of refusing")
+    e.add_argument("--audit-resolution", type=_rate("audit resolution"), default=None, metavar="HZ", help="bin spacing of the input spectrum the alias audit reads (default: from the narrowest channel, bandwidth / 32)")
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
     e.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
     e.set_defaults(func=_cmd_extract)
@@ -297,7 +310,7 @@ def _cmd_demo(args):
     if result.verification is not None:
         v = result.verification
         print(f"verify    measured rejection {v.measured_rejection_db:.1f} dB, ripple {v.measured_ripple_db:.4f} dB: "
-              f"{'meets' if v.meets_spec else 'MISSES'} the spec")
+              f"{v.verdict_text()}")
     print(f"\nreport: {os.path.abspath(result.report_path)}  ({result.seconds:.1f} s)")
     return 0
 
@@ -328,11 +341,11 @@ def _cmd_verify(args):
     if args.json:
         write_text_atomic(args.json, v.to_json())
         print(f"measurements written to {args.json}")
-    return 0 if v.meets_spec else 1
+    return {"meets": 0, "does not meet": 1}.get(v.verdict, EXIT_INCONCLUSIVE)
 
 
 def _register_verify(sub):
-    v = sub.add_parser("verify", help="measure a plan with tone sweeps through the real processor", description="Drive the extract processor with test tones in the passband and in every band that folds onto it; compare measured with predicted. Exit 0 when the measured figures meet the plan's spec, 1 when not, 2 for bad input.")
+    v = sub.add_parser("verify", help="measure a plan with tone sweeps through the real processor", description="Drive the extract processor with test tones in the passband and in every band that folds onto it; compare measured with predicted. Exit 0 when the measured figures meet the plan's spec, 1 when not, 2 for bad input, 3 when the measurement's own floor cannot decide.")
     v.add_argument("plan", metavar="PLAN.yaml")
     v.add_argument("--bit-true", action="store_true", help="run the integer chain")
     v.add_argument("--tones", type=int, default=None, help="number of test tones spread over the bands that fold onto the passband (default 200; the passband always gets 17)")
@@ -387,11 +400,15 @@ def _cmd_export(args):
     plan = read_plan(args.plan)
     report = export_plan(plan, args.out, coefficient_bits=args.coefficient_bits, vectors=args.vectors)
     print(report.format())
+    if not report.meets_spec:
+        need = f"; {report.bits_needed}-bit coefficients would meet it" if report.bits_needed else ""
+        print(f"warning: the quantised chain does not meet the plan's spec{need} (files written)", file=sys.stderr)
+        return 1
     return 0
 
 
 def _register_export(sub):
-    x = sub.add_parser("export", help="coefficients, bit widths and test vectors for hardware", description="Write a plan's quantised coefficients (CSV, C header, $readmemh hex), its bit-width table and bit-true test vectors.")
+    x = sub.add_parser("export", help="coefficients, bit widths and test vectors for hardware", description="Write a plan's quantised coefficients (CSV, C header, $readmemh hex), its bit-width table and bit-true test vectors. Exit 0 when the quantised chain meets the plan's spec, 1 when not (files still written), 2 for bad input.")
     x.add_argument("plan", metavar="PLAN.yaml")
     x.add_argument("--out", required=True, metavar="DIR", help="output folder (created; an earlier export there is replaced)")
     x.add_argument("--coefficient-bits", type=_bits, default=None, help="coefficient width in bits (default: the plan's)")
@@ -448,22 +465,21 @@ _EXTRA_COMMANDS = [_register_extract, _register_survey, _register_verify, _regis
 
 def main(argv=None):
     """Run the command line; returns the exit status."""
+    from .io.console import ClosedPipeTolerant
+
     parser = build_parser()
     args, unknown = parser.parse_known_args(argv)
     if unknown:  # name the command and the option it does not know
         sub = f"{parser.prog} {args.command}"
         print(f"{sub}: error: unknown option or extra argument: {' '.join(unknown)} (see {sub} --help)", file=sys.stderr)
         return 2
+    # a reader that stops early (| head) must not keep the command from writing its files
+    stdout = sys.stdout = ClosedPipeTolerant(sys.stdout)
     try:
         return args.func(args) or 0
     except ChannelizerError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
-    except BrokenPipeError:
-        # output piped into a program that stopped reading (e.g. head): not an error
-        with contextlib.suppress(OSError):
-            sys.stdout = open(os.devnull, "w")
-        return 0
     except KeyboardInterrupt:
         print("error: interrupted; no output was completed", file=sys.stderr)
         return 130
@@ -471,6 +487,9 @@ def main(argv=None):
         name = f"{exc.filename}: " if exc.filename else ""
         print(f"error: {name}{exc.strerror or exc}", file=sys.stderr)
         return 2
+    finally:
+        stdout.flush()
+        sys.stdout = stdout.stream
 
 
 if __name__ == "__main__":  # pragma: no cover

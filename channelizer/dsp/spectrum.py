@@ -194,6 +194,10 @@ class _Segmenter:
         # copy: never hold on to (a view of) the caller's block
         self._tail = np.array(buf[count * self.step :], copy=True)
 
+    def restart(self):
+        """Drop the samples of an unfinished segment: the next block does not follow on."""
+        self._tail = np.zeros(0, dtype=np.complex64)
+
 
 # --------------------------------------------------------------------------- Welch PSD
 
@@ -336,6 +340,10 @@ class WelchAccumulator:
     def update(self, block):
         """Add a block of samples (1-D, complex or real) that follows the previous one."""
         self._seg.feed(block, self._add)
+
+    def restart(self):
+        """The next block does not follow the previous one: no segment spans the gap."""
+        self._seg.restart()
 
     def _add(self, first, periodograms):
         self._sum += periodograms.sum(axis=0, dtype=np.float64)

@@ -88,10 +88,11 @@ class ChainSpec:
                 raise ChannelizerError(
                     f"stopband edge {format_hz(self.stopband_edge)} must lie beyond the passband edge {format_hz(self.bandwidth / 2)}"
                 )
+            which = "output" if self.output_rate else "input"
             top = (self.output_rate or self.input_rate) / 2
             if self.stopband_edge >= top:
                 raise ChannelizerError(
-                    f"stopband edge {format_hz(self.stopband_edge)} must lie below half the output rate ({format_hz(top)})"
+                    f"stopband edge {format_hz(self.stopband_edge)} must lie below half the {which} rate ({format_hz(top)})"
                 )
         if self.bandwidth >= self.input_rate:
             raise ChannelizerError(

@@ -44,6 +44,7 @@ def run_extraction(
     block_size=None,
     audit=True,
     trim_settling=False,
+    audit_resolution=None,
 ):
     """Extract ``entries`` (ChannelEntry) from an open capture into ``out_dir``.
 
@@ -71,6 +72,8 @@ def run_extraction(
         requests.append(ChannelRequest(e.name, _offset(e, capture), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
     kw["trim_settling"] = trim_settling
+    if audit_resolution is not None:
+        kw["audit_resolution"] = audit_resolution
     files = FileSet()  # the recordings and the summary appear together, or not at all
     try:
         result = _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)

@@ -21,6 +21,7 @@ from ..io.atomic import FileSet, write_text_atomic
 from ..errors import ChannelizerError
 from ..io.names import safe_output_name
 from ..dsp.spectrum import WelchAccumulator
+from ..planning.response import impulse_seconds
 from ..planning.stages import chain_rates
 from ..io.progress import ProgressBar
 from ..units import format_hz
@@ -74,6 +75,8 @@ class ChannelResult:
     plan_id: str
     files: list
     clipped: int = 0
+    peak: float = 0.0  # largest |I| or |Q| at the output, full scale 1
+    settled_from: int = 0  # output sample the mean power starts at (the chain's length)
     spectrum: object = None
     alias_audit: list = field(default_factory=list)
     timing: object = None
@@ -152,6 +155,7 @@ def extract_channels(
     spectra=True,
     fileset=None,
     trim_settling=False,
+    audit_resolution=None,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -179,6 +183,9 @@ def extract_channels(
     trim_settling : bool
         Leave out each channel's start-up samples (see :mod:`channelizer.run.timing`);
         otherwise they are written and marked by an annotation.
+    audit_resolution : float, optional
+        Bin spacing in Hz of the input spectrum the alias audit reads; by default
+        chosen from the channels' bandwidths (:func:`channelizer.checks.alias_audit.audit_resolution`).
 
     Returns
     -------
@@ -195,7 +202,8 @@ def extract_channels(
     if bit_true and not capture.datatype.is_integer:
         raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
     _prepare_out_dir(out_dir)
-    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra)
+    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
+                audit_resolution=audit_resolution)
     one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
     own_set = fileset is None
     files = FileSet() if own_set else fileset
@@ -214,7 +222,7 @@ def extract_channels(
 class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
-    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra):
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None):
         self.capture, self.requests, self.names = capture, requests, names
         self.bit_true, self.block_size = bit_true, block_size
         fs = capture.sample_rate
@@ -229,7 +237,13 @@ class _Pass:
         n_total = capture.num_samples
         n_blocks = max(1, -(-n_total // block_size))
         self.stride = max(1, -(-n_blocks * block_size // OVERVIEW_SAMPLES))
-        self.overview = WelchAccumulator(fs=fs, nperseg=4096, center_frequency=centre) if spectra else None
+        if audit_resolution is None:
+            from ..checks.alias_audit import audit_resolution as default_resolution
+
+            audit_resolution = default_resolution([r.plan.bandwidth for r in requests], fs=fs, samples=n_total)
+        if self.stride > 1:  # blocks apart in the file: a segment must fit in one block
+            audit_resolution = max(audit_resolution, fs / 2 ** int(math.log2(block_size)))
+        self.overview = WelchAccumulator(fs=fs, resolution=audit_resolution, center_frequency=centre) if spectra else None
         self.out_spectra = []
         for r in requests:
             n_out = int(n_total * r.plan.output_rate / fs)
@@ -238,22 +252,30 @@ class _Pass:
             self.out_spectra.append(
                 WelchAccumulator(fs=r.plan.output_rate, nperseg=nper, center_frequency=centre + r.offset) if ok else None
             )
-        self.power = [0.0] * len(requests)
+        self.power = [0.0] * len(requests)  # over the settled outputs
         self.count = [0] * len(requests)
+        # the mean power skips the chain's start-up: its impulse response length in outputs
+        self.settle = [int(math.ceil(impulse_seconds(r.plan.stages, fs=fs) * r.plan.output_rate)) for r in requests]
+        self.peak = [0.0] * len(requests)
         self.writers = []
+
+    def _overview_update(self, block):
+        if self.stride > 1:
+            self.overview.restart()  # the previous block fed was not the one before this
+        self.overview.update(block)
 
     def _outputs(self, i, block):
         """Every channel's output for one input block (complex64, full-scale units)."""
         if not self.bit_true:
             if self.overview is not None and i % self.stride == 0:
-                self.overview.update(block)
+                self._overview_update(block)
             return self.bank.process(block)
         scale_in = 2.0 ** (self.capture.datatype.bits - 1)
         raw = block.astype(np.int64)
         if self.capture.datatype.kind == "u":
             raw = raw - int(scale_in)
         if self.overview is not None and i % self.stride == 0:
-            self.overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
+            self._overview_update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
         outs = []
         for runner in self.runners:
             y = runner.process(raw)
@@ -303,8 +325,10 @@ class _Pass:
                         y, skip[k] = y[cut:], skip[k] - cut
                     if y.size:
                         self.writers[k].write(y)
-                        self.power[k] += float(np.vdot(y, y).real)
+                        settled = y[max(0, self.settle[k] - self.count[k]):]
+                        self.power[k] += float(np.vdot(settled, settled).real)
                         self.count[k] += y.size
+                        self.peak[k] = max(self.peak[k], float(np.abs(y.view(y.real.dtype)).max()))
                         if self.out_spectra[k] is not None:
                             self.out_spectra[k].update(y)
                 done += block.shape[0]
@@ -317,6 +341,7 @@ class _Pass:
         results = []
         for k, (r, name, w) in enumerate(zip(self.requests, self.names, self.writers)):
             spec = self.out_spectra[k]
+            n_settled = self.count[k] - self.settle[k]
             results.append(
                 ChannelResult(
                     name=name,
@@ -324,11 +349,13 @@ class _Pass:
                     center_frequency=None if centre is None else float(centre + r.offset),
                     output_rate=float(r.plan.output_rate),
                     samples=int(self.count[k]),
-                    mean_power_dbfs=_dbfs(self.power[k] / self.count[k]) if self.count[k] else -math.inf,
+                    mean_power_dbfs=_dbfs(self.power[k] / n_settled) if n_settled > 0 else math.nan,
                     group_delay_output_samples=chain_delay_output_samples(r.plan.stages, fs=fs),
                     plan_id=r.plan_id,
                     files=[os.path.basename(w.data_path), os.path.basename(w.meta_path)],
                     clipped=int(w.clipped),
+                    peak=self.peak[k],
+                    settled_from=self.settle[k],
                     spectrum=spec.result() if spec is not None and spec.segments else None,
                     timing=self.timing[k],
                 )
@@ -342,6 +369,7 @@ def write_summary(result, out_dir, *, extra=None, fileset=None):
     cap = result.capture
     doc = {
         "capture": os.path.basename(cap.path),
+        "audit_resolution_hz": None if result.overview is None else result.overview.bin_hz,
         "sample_rate": cap.sample_rate,
         "center_frequency": cap.center_frequency,
         "input_samples": result.input_samples,
@@ -357,7 +385,9 @@ def write_summary(result, out_dir, *, extra=None, fileset=None):
                 "group_delay_output_samples": round(c.group_delay_output_samples, 6),
                 "plan_sha256": c.plan_id,
                 "files": c.files,
+                "power_from_sample": c.settled_from,
                 "clipped_samples": c.clipped,
+                "peak_component": round(c.peak, 6),
                 "alias_audit": c.alias_audit,
                 **({} if c.timing is None else {
                     "settling_samples": c.timing.settling, "settling_trimmed": c.timing.skipped > 0}),

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..planning.response import alias_intervals, composite_response, image_step
+from ..planning.response import alias_intervals, image_step, normalised_response
 from ..planning.stages import chain_rates
 
 __all__ = ["AliasEnvelope", "alias_envelope", "peak_envelope"]
@@ -65,7 +65,7 @@ def alias_envelope(plan, *, points=1201):
         ok = (x >= lo) & (x <= hi)
         level = np.full(points, np.nan)
         if ok.any():
-            level[ok] = _db(composite_response(plan.stages, x[ok], fs=fs, image=k))
+            level[ok] = _db(normalised_response(plan.stages, x[ok], fs=fs, image=k))
         curves.append(level)
         best = np.fmax(best, np.nan_to_num(level, nan=-np.inf))
     if not curves:

@@ -4,7 +4,7 @@ import math
 
 import numpy as np
 
-from ..planning.response import alias_intervals, composite_response
+from ..planning.response import alias_intervals, normalised_response
 from ..planning.stages import chain_rates
 from ..units import format_hz
 from .table import stage_rows
@@ -70,7 +70,8 @@ def plot_plan(plan, path, *, title=None):
     rows, _ = stage_rows(plan)
     for st, rate, row in zip(plan.stages, rates, rows):
         g = np.linspace(-rate / 2.0, rate / 2.0, 4001)  # a stage only sees its own input band
-        ax.plot(g, _db(st.response(g, fs=rate)), lw=0.7, alpha=0.5, label=f"{row['stage']}: {row['kind']} {row['ratio']} (over its input band)")
+        # a rational stage's filter has gain L: drawn over L, like the composite
+        ax.plot(g, _db(st.response(g, fs=rate) / st.interpolation), lw=0.7, alpha=0.5, label=f"{row['stage']}: {row['kind']} {row['ratio']} (over its input band)")
     fc, hi_db, lo_db = _composite_columns(plan, -fs / 2.0, fs / 2.0)
     ax.fill_between(fc, np.maximum(lo_db, ylo), np.maximum(hi_db, ylo), color="black", lw=0.8, label="composite")
     ax.hlines(np.full(len(intervals), ylo + 2.0), [lo for lo, _, _ in intervals], [hi for _, hi, _ in intervals],
@@ -88,7 +89,7 @@ def plot_plan(plan, path, *, title=None):
 
     env = alias_envelope(plan)
     pb = np.linspace(-fs_out / 2, fs_out / 2, 2001)
-    bx.plot(pb, _db(composite_response(plan.stages, pb, fs=fs)), color="black", lw=1.4, label="direct path (no folding)")
+    bx.plot(pb, _db(normalised_response(plan.stages, pb, fs=fs)), color="black", lw=1.4, label="direct path (no folding)")
     bx.plot(env.freqs, env.level_db, color="tab:blue", lw=1.4, label=f"worst of {env.bands} folded bands")
     if env.worst_band is not None:
         lo, hi, _ = env.worst_band
@@ -118,7 +119,7 @@ def _composite_columns(plan, lo, hi, columns=1600):
 
     per = max(8, min(256, int(16 * plan.input_rate / plan.output_rate * (hi - lo) / plan.input_rate)))
     f = np.linspace(lo, hi, columns * per)
-    return peak_envelope(f, _db(composite_response(plan.stages, f, fs=plan.input_rate)), columns)
+    return peak_envelope(f, _db(normalised_response(plan.stages, f, fs=plan.input_rate)), columns)
 
 
 def _zoom_inset(ax, plan, intervals, target, ylo):

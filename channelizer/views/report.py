@@ -4,6 +4,7 @@ import base64
 import html
 import os
 
+from ..checks.alias_audit import format_attenuation
 from ..io.atomic import write_text_atomic
 from .table import stage_rows
 from ..units import format_hz
@@ -88,7 +89,7 @@ def _reading(demo, annotations):
     )
     v = demo.verification
     if v is not None:
-        verdict = "meets" if v.meets_spec else "does not meet"
+        verdict = {"inconclusive": "is neither shown to meet nor to miss (measurement floor)"}.get(v.verdict, v.verdict)
         lines.append(
             f"Tone sweeps through the same code that extracted the channels measured {v.measured_rejection_db:.1f} dB of "
             f"alias rejection and {v.measured_ripple_db:.3f} dB of passband ripple: the chain {verdict} its targets."
@@ -101,7 +102,7 @@ def _reading(demo, annotations):
         margin = (a["output_noise_floor_dbfs_per_hz"] or 0) - a["output_level_dbfs_per_hz"]
         lines.append(
             f"The strongest signal folding onto a channel is the one at {format_hz(a['signal_center_hz'])} "
-            f"({a['signal_power_dbfs']:.1f} dBFS) onto {name}: the chain attenuates it by {a['attenuation_db']:.0f} dB, "
+            f"({a['signal_power_dbfs']:.1f} dBFS) onto {name}: the chain attenuates it by {format_attenuation(a)}, "
             f"so it arrives {margin:.0f} dB below that channel's noise floor."
         )
     if flagged:
@@ -173,7 +174,7 @@ def write_report(demo, *, annotations=()):
             parts.append(
                 _table(
                     ["folding signal", "its power", "attenuation", "arrives at", "output noise", "lands at"],
-                    [[format_hz(a["signal_center_hz"]), f"{a['signal_power_dbfs']:.1f} dBFS", f"{a['attenuation_db']:.1f} dB",
+                    [[format_hz(a["signal_center_hz"]), f"{a['signal_power_dbfs']:.1f} dBFS", format_attenuation(a),
                       f"{a['output_level_dbfs_per_hz']:.1f} dBFS/Hz",
                       "-" if a["output_noise_floor_dbfs_per_hz"] is None else f"{a['output_noise_floor_dbfs_per_hz']:.1f} dBFS/Hz",
                       format_hz(a['landing_offset_hz'], signed=True)]

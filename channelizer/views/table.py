@@ -3,6 +3,7 @@
 import math
 
 from ..planning.cost import chain_cost
+from ..planning.response import fold, path_of, resampler_of
 from ..planning.stages import CicStage, ResamplerStage, chain_rates
 from ..units import format_hz
 
@@ -99,7 +100,7 @@ def format_plan(plan):
         "",
         f"Predicted passband ripple  {pred['passband_ripple_db']:.4f} dB   (target {spec['ripple_db']:g} dB)",
         f"Predicted alias rejection  {pred['alias_rejection_db']:.2f} dB   (target {spec['rejection_db']:g} dB)"
-        + (f", worst at {format_hz(pred['worst_alias_hz'])} from centre" if "worst_alias_hz" in pred else ""),
+        + (f", worst at {worst_path_text(plan, pred['worst_alias_hz'])}" if "worst_alias_hz" in pred else ""),
     ]
     if "stopband_rejection_db" in pred:
         lines.append(
@@ -113,6 +114,17 @@ def format_plan(plan):
         + (f", {t.multipliers} multiplier{'s' if t.multipliers != 1 else ''} at {format_hz(spec.get('clock') or plan.input_rate)}" if hw else ""),
     ]
     return "\n".join(lines)
+
+
+def worst_path_text(plan, f):
+    """Where the worst alias is, and whether it is an alias or an image of the rational stage."""
+    k = path_of(plan.stages, f, fs=plan.input_rate, bandwidth=plan.bandwidth)
+    if k == 0:
+        return f"{format_hz(f)} from centre"
+    res, fs_r = resampler_of(plan.stages, fs=plan.input_rate)
+    land = float(fold(f + k * fs_r, plan.output_rate))
+    return (f"{format_hz(f)} from centre on image path {k} of the x{res.interpolation}/{res.decimation} stage, "
+            f"not an alias (its filter sees {format_hz(f + k * fs_r)}; lands at {format_hz(land)})")
 
 
 def format_alternatives(alternatives, limit=5):
