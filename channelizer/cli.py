@@ -19,10 +19,10 @@ from .units import parse_frequency
 __all__ = ["main", "build_parser"]
 
 
-def _rate(name):
+def _rate(name, *, allow_negative=False):
     def parse(text):
         try:
-            return parse_frequency(text, name=name, allow_negative=False)
+            return parse_frequency(text, name=name, allow_negative=allow_negative)
         except ChannelizerError as exc:
             raise argparse.ArgumentTypeError(str(exc)) from None
 
@@ -59,6 +59,9 @@ def read_plan(path):
 
 def _cmd_plan(args):
     from .io.atomic import write_text_atomic
+
+    if args.spacing is not None or args.first is not None or args.last is not None:
+        return _plan_bank(args)
     from .planning.planner import plan_chain
     from .planning.spec import ChainSpec
     from .views.table import format_alternatives, format_plan
@@ -90,6 +93,45 @@ def _cmd_plan(args):
 
         _check_output_path(args.plot)
         plot_plan(result.plan, args.plot)
+        print(f"response plot written to {args.plot}")
+    return 0
+
+
+def _plan_bank(args):
+    from .io.atomic import write_text_atomic
+    from .planning.bank import BankPlan
+    from .planning.bank_planner import BankSpec, plan_bank
+    from .views.bank_table import format_bank_plan
+    from .views.table import format_alternatives, format_plan
+
+    if args.spacing is None:
+        raise ChannelizerError("--first and --last need --spacing (the raster of a filter bank)")
+    for opt in ("stopband_edge", "clock"):
+        if getattr(args, opt) is not None:
+            raise ChannelizerError(f"--{opt.replace('_', '-')} does not apply to a bank plan (--spacing)")
+    if args.objective != "cpu":
+        raise ChannelizerError("a bank plan is costed for --objective cpu only")
+    spec = BankSpec(
+        input_rate=args.rate, bandwidth=args.bandwidth, spacing=args.spacing, output_rate=args.output_rate,
+        first=args.first, last=args.last, ripple_db=args.ripple_db, rejection_db=args.rejection_db,
+        input_bits=args.input_bits, output_bits=args.output_bits,
+    )
+    for path in (args.out, args.plot):
+        if path:
+            _check_output_path(path)
+    result = plan_bank(spec)
+    bank = isinstance(result.plan, BankPlan)
+    print(format_bank_plan(result.plan) if bank else format_plan(result.plan))
+    if not bank:
+        print(f"\n{result.channels} channels: one chain each is cheaper than a bank; run extract with this plan and --channel")
+    print(format_alternatives(result.alternatives, limit=6))
+    if args.out:
+        write_text_atomic(args.out, result.plan.to_yaml())
+        print(f"\nplan written to {args.out}")
+    if args.plot:
+        from .views.plots import plot_plan
+
+        plot_plan(result.plan.channel_plan() if bank else result.plan, args.plot)
         print(f"response plot written to {args.plot}")
     return 0
 
@@ -386,6 +428,9 @@ def build_parser():
     q.add_argument("--objective", choices=["cpu", "hardware"], default="cpu", help="what to minimise (default cpu)")
     q.add_argument("--clock", type=_rate("clock"), default=None, help="hardware clock (default: the input rate)")
     q.add_argument("--stopband-edge", type=_rate("stopband edge"), default=None, help="also attenuate everything beyond this offset from the channel centre (removes the neighbours; default: only what folds onto the passband)")
+    q.add_argument("--spacing", type=_rate("spacing"), default=None, help="plan a filter bank for every channel on this raster spacing")
+    q.add_argument("--first", type=_rate("first", allow_negative=True), default=None, help="with --spacing: first raster channel, offset from the capture centre (default: the whole band)")
+    q.add_argument("--last", type=_rate("last", allow_negative=True), default=None, help="with --spacing: last raster channel, offset from the capture centre")
     q.add_argument("--out", metavar="FILE.yaml", help="write the plan file")
     q.add_argument("--plot", metavar="FILE.png", help="write the response figure")
     q.set_defaults(func=_cmd_plan)
