@@ -184,15 +184,17 @@ def _cmd_extract(args):
     if args.channels:
         entries += parse_channel_list(_read_text(args.channels, "channel list"), source=args.channels)
         base = os.path.dirname(os.path.abspath(args.channels))
-    if not entries:
+    bank = None
+    if args.plan:
+        from .run.bank_extraction import load_bank_plan_file
+
+        bank = load_bank_plan_file(args.plan)  # None for a chain plan
+    if not entries and bank is None:
         raise ChannelizerError("no channel to extract: give --channel NAME=FREQ or --channels FILE")
+    if bank is not None and args.bit_true:
+        raise ChannelizerError("--bit-true does not cover filter-bank plans yet; drop --bit-true or plan a chain")
     capture = _open_capture(args)
-    result = run_extraction(
-        capture,
-        entries,
-        args.out,
-        plan_path=args.plan,
-        base_dir=base,
+    common = dict(
         output_format=args.output_format,
         bit_true=args.bit_true,
         plots=not args.no_plots,
@@ -200,11 +202,17 @@ def _cmd_extract(args):
         nonfinite="zero" if args.zero_nonfinite else "error",
         block_size=args.block_size,
     )
+    if bank is not None:
+        from .run.bank_extraction import run_bank_extraction
+
+        result = run_bank_extraction(capture, bank[0], args.out, entries=entries, plan_id=bank[1], plan_source=args.plan, **common)
+    else:
+        result = run_extraction(capture, entries, args.out, plan_path=args.plan, base_dir=base, **common)
     from .units import format_hz
 
     if capture.nonfinite_count:
         print(f"warning: {capture.nonfinite_count} non-finite samples were replaced by zero", file=sys.stderr)
-    mode = "bit-true" if args.bit_true else "float"
+    mode = "bit-true" if args.bit_true else "filter-bank" if bank is not None else "float"
     print(
         f"{capture.path}: {result.input_samples} samples at {format_hz(capture.sample_rate, 'sps')}, "
         f"{len(result.channels)} channel(s), {mode} path, {result.seconds:.2f} s "

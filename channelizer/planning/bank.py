@@ -13,13 +13,15 @@ from dataclasses import dataclass, field
 import hashlib
 import math
 
+import numpy as np
 import yaml
 
 from ..errors import ChannelizerError, shown
+from .bank_response import prototype_magnitude
 from .plan import Plan, _Validator, _kind, _plain, load_plan_text, stage_to_dict
 from .stages import FirStage, ResamplerStage, chain_rates
 
-__all__ = ["BankPlan", "BANK_FORMAT", "is_bank_data"]
+__all__ = ["BankPlan", "BankFrontStage", "BANK_FORMAT", "is_bank_data"]
 
 BANK_FORMAT = "channelizer-bank/1"
 MAX_CHANNELS = 100_000
@@ -28,6 +30,24 @@ MAX_CHANNELS = 100_000
 def is_bank_data(data):
     """True when loaded plan data announces the bank format."""
     return isinstance(data, dict) and data.get("format") == BANK_FORMAT
+
+
+@dataclass(frozen=True)
+class BankFrontStage(FirStage):
+    """The prototype decimating by ``M / O``, as the first stage of a channel's path.
+
+    Its response is read from one dense FFT of the taps (see
+    :func:`prototype_magnitude`) with the linear phase of a symmetric FIR,
+    instead of a polynomial evaluation per frequency: thousands of taps at
+    thousands of frequencies, once per channel, in the alias audit and plots.
+    """
+
+    def response(self, f, *, fs):
+        cache = self.__dict__.setdefault("_magnitude", {})
+        if fs not in cache:
+            cache[fs] = prototype_magnitude(self.taps, fs=fs)
+        f = np.asarray(f, dtype=float)
+        return cache[fs](f) * np.exp(-1j * np.pi * f * (len(self.taps) - 1) / fs)
 
 
 @dataclass(frozen=True)
@@ -109,7 +129,7 @@ class BankPlan:
         on its bin centre (the audit, plots and delays use it; the alias bands, which
         depend on the rates only, are exact).
         """
-        front = FirStage(self.decimation, tuple(self.prototype), "fir", "channel")
+        front = BankFrontStage(self.decimation, tuple(self.prototype), "fir", "channel")
         return Plan(self.input_rate, self.output_rate, self.bandwidth, dict(self.spec), (front,) + tuple(self.stages), dict(self.predicted))
 
     # ---------------------------------------------------------------- YAML

@@ -17,6 +17,12 @@ __all__ = ["load_plan_file", "run_extraction"]
 
 def load_plan_file(path):
     """Read and validate a plan file; returns (plan, identity)."""
+    data = read_plan_bytes(path)
+    return Plan.from_yaml(data, source=path), plan_identity(data)
+
+
+def read_plan_bytes(path):
+    """The bytes of a plan file, refused when too large to be one."""
     try:
         size = os.path.getsize(path)
         if size > MAX_PLAN_BYTES:
@@ -25,7 +31,7 @@ def load_plan_file(path):
             data = fh.read()
     except OSError as exc:
         raise ChannelizerError(f"{path}: cannot read plan ({exc.strerror})") from None
-    return Plan.from_yaml(data, source=path), plan_identity(data)
+    return data
 
 
 def run_extraction(

@@ -145,6 +145,7 @@ def extract_channels(
     progress=False,
     spectra=True,
     fileset=None,
+    engine=None,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -169,6 +170,10 @@ def extract_channels(
         Leave the recordings uncommitted in this set (the caller adds the summary
         and commits, so that all outputs of a run appear together); by default
         they are committed here once every channel is complete.
+    engine : object, optional
+        Float runner for all channels at once (``process(block)`` returning one
+        array per request, in order), e.g. a filter bank; by default the
+        requests' own chains, first stages shared where they can be.
 
     Returns
     -------
@@ -185,7 +190,7 @@ def extract_channels(
     if bit_true and not capture.datatype.is_integer:
         raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
     _prepare_out_dir(out_dir)
-    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra)
+    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra, engine=engine)
     own_set = fileset is None
     files = FileSet() if own_set else fileset
     t0 = time.perf_counter()
@@ -203,13 +208,15 @@ def extract_channels(
 class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
-    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra):
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, engine=None):
         self.capture, self.requests, self.names = capture, requests, names
         self.bit_true, self.block_size = bit_true, block_size
         fs = capture.sample_rate
         centre = capture.center_frequency or 0.0
         if bit_true:
             self.runners = [_integer_chain(r, capture) for r in requests]
+        elif engine is not None:
+            self.bank = engine
         else:
             # channels sharing a first stage share its matrix product
             from ..engines.float_chain import SharedFrontBank
