@@ -54,8 +54,8 @@ def select_channels(plan, entries, *, center, plan_source="plan"):
         i, near = plan.raster_index(off)
         if i is None:
             raise ChannelizerError(
-                f"channel {e.name}: {format_hz(base + off)} is not on the raster of {plan_source} "
-                f"({format_hz(plan.spacing)} spacing); the nearest raster frequency is {format_hz(base + near)}"
+                f"channel {e.name}: {format_hz(base + off, digits=10)} is not on the raster of {plan_source} "
+                f"({format_hz(plan.spacing)} spacing); the nearest raster frequency is {format_hz(base + near, digits=10)}"
             )
         out.append((e.name, i))
     return out
