@@ -360,7 +360,13 @@ def _cmd_bench(args):
 
     if args.json:
         _check_output_path(args.json)
-    if args.soak:
+    if args.spacing is not None:
+        from .bench.bank_speed import format_bank_report, run_bank_benchmark
+
+        report = run_bank_benchmark(spacing=args.spacing, rate=args.rate or 2.4e6, bandwidth=args.bandwidth, seconds=args.seconds or 0.5)
+        print(format_bank_report(report))
+        doc = report.to_dict()
+    elif args.soak:
         report = run_soak(gigabytes=args.soak, channels=4, progress=not args.quiet)
         print(format_soak_report(report))
         doc = report.to_dict()
@@ -370,7 +376,7 @@ def _cmd_bench(args):
         for row in planner["specs"]:
             print(f"  {row['seconds']:7.3f} s  {row['layout']:<28} {row['spec']}")
         print(f"  worst {planner['worst_s']:.3f} s (target < {planner['target_s']:g} s): {'met' if planner['met'] else 'MISSED'}\n")
-        report = run_benchmark(seconds=args.seconds, channels=args.channels, progress=not args.quiet)
+        report = run_benchmark(seconds=args.seconds or 2.0, channels=args.channels, progress=not args.quiet)
         print(format_report(report))
         doc = report.to_dict()
         doc["planner"] = planner
@@ -382,9 +388,12 @@ def _cmd_bench(args):
 
 def _register_bench(sub):
     b = sub.add_parser("bench", help="speed and memory figures as ratios against a reference run", description="Measure the planner, and extraction speed and memory against a scipy.signal.resample_poly reference in the same process; --soak runs the large-file memory check.")
-    b.add_argument("--seconds", type=_positive_float, default=2.0, help="length of the synthetic 61.44 Msps capture (default 2)")
+    b.add_argument("--seconds", type=_positive_float, default=None, help="length of the synthetic capture (default 2; 0.5 with --spacing)")
     b.add_argument("--channels", type=int, default=8, help="channels of the many-channel run (default 8)")
     b.add_argument("--soak", type=_positive_float, metavar="GB", help="instead: extract 4 channels from a capture of GB gigabytes and report peak memory")
+    b.add_argument("--spacing", type=_rate("spacing"), default=None, help="instead: every channel of this raster through the filter bank, against one channel and one chain each")
+    b.add_argument("--rate", type=_rate("rate"), default=None, help="with --spacing: capture rate (default 2.4M)")
+    b.add_argument("--bandwidth", type=_rate("bandwidth"), default=None, help="with --spacing: channel width (default 0.8 x spacing)")
     b.add_argument("--json", metavar="FILE", help="write the figures as JSON")
     b.add_argument("--quiet", action="store_true", help="no progress lines")
     b.set_defaults(func=_cmd_bench)

@@ -93,19 +93,31 @@ class PolyphaseBank:
         self.decimation = M // O
         self.K = h.size // M
         self.delay = (h.size - 1) / 2.0
-        self.keep = np.arange(M) if keep is None else np.asarray(keep, dtype=np.intp)
-        if self.keep.ndim != 1 or self.keep.size == 0 or self.keep.min() < 0 or self.keep.max() >= M:
+        self.keep = None if keep is None else np.asarray(keep, dtype=np.intp)
+        if self.keep is not None and (self.keep.ndim != 1 or self.keep.size == 0 or self.keep.min() < 0 or self.keep.max() >= M):
             raise ChannelizerError(f"keep: expected bin numbers from 0 to {M - 1}")
         # hr[m, r] = h[KM-1-mM-r], laid out as float32 pairs to multiply I and Q alike
         hr = h[::-1].reshape(self.K, M).astype(np.float32)
-        self._h2 = np.repeat(hr, 2, axis=1)
-        self._rows = max(16, 32768 // M)  # rows per pass: the pass stays in cache
+        # branch filters as one batched matrix product when few taps are structural
+        # zeros (O <= 2); otherwise K element-wise passes (see _branches)
+        self._blas = O <= 2
+        if self._blas:
+            self._G, self._B, self._Q = _branch_matrices(hr, O, self.decimation)
+        else:
+            self._h2 = np.repeat(hr, 2, axis=1)
+            self._rows = max(16, 32768 // M)  # rows per pass: the pass stays in cache
         self._hist = np.zeros(h.size - 1, dtype=np.complex64)
         self.n_in = 0
         self.n_out = 0
 
     def _branches(self, buf, n_new):
-        """``u[n, r] = sum_m hr[m, r] buf[nD + mM + r]`` for ``n < n_new``."""
+        """``u[n, t] = sum_m hr[m, t] buf[nD + mM + t]`` for ``n < n_new`` (at least).
+
+        Returned as a float32 view ``(R, J, O, D, 2)``: ``n = r J + j``, ``t = a D + b``,
+        real and imaginary parts last.
+        """
+        if self._blas:
+            return self._branches_product(buf, n_new)
         M, D, K = self.bins, self.decimation, self.K
         fb = buf.view(np.float32)
         out = np.empty((n_new, 2 * M), np.float32)
@@ -122,7 +134,31 @@ class PolyphaseBank:
                 else:
                     np.multiply(w, self._h2[m], out=t)
                     o += t
-        return out.view(np.complex64)
+        return out.reshape(n_new, 1, self.oversampling, D, 2)
+
+    def _branches_product(self, buf, n_new):
+        """:meth:`_branches` as one batched product over the ``D`` input phases.
+
+        With ``t = aD + b`` and ``S_b[i] = buf[iD + b]``,
+        ``u[n, aD + b] = sum_l g_ab[l] S_b[n + l]``, ``l = a + mO < KO``,
+        ``g_ab[a + mO] = hr[m, aD + b]``; rows of ``B`` samples of every ``S_b``
+        (I and Q as separate rows) times ``G_b`` give ``Q`` partial sums per output.
+        """
+        D, O, K = self.decimation, self.oversampling, self.K
+        B, Q = self._B, self._Q
+        rows = -(-n_new // B)
+        need = (rows + Q - 1) * B
+        L = min(n_new + K * O - 1, buf.size // D)
+        S = np.zeros((D, 2, need), np.float32)
+        seq = buf[: L * D].view(np.float32).reshape(L, D, 2)
+        S[:, :, :L] = seq.transpose(1, 2, 0)
+        Z = np.matmul(S.reshape(D, 2 * need // B, B), self._G)  # (D, 2 need/B, Q O B)
+        Z = Z.reshape(D, 2, need // B, Q, O, B)
+        y = Z[:, :, :rows, 0].copy()
+        for q in range(1, Q):
+            y += Z[:, :, q : q + rows, q]
+        # (D, 2, rows, O, B) seen as u[n = tB + j, aD + b]
+        return y.transpose(2, 4, 3, 0, 1)
 
     def process(self, block):
         """Feed the next block; returns ``(n_new, len(keep))`` complex64 bin outputs."""
@@ -135,20 +171,49 @@ class PolyphaseBank:
         self.n_in = total
         if n_new <= 0:
             self._hist = buf
-            return np.zeros((0, self.keep.size), np.complex64)
+            return np.zeros((0, M if self.keep is None else self.keep.size), np.complex64)
         u = self._branches(buf, n_new)
-        z = np.empty_like(u)
+        R, J = u.shape[:2]
+        z = np.empty((R, J, M, 2), np.float32)
         for c in range(O):
-            first = (c - self.n_out) % O  # local row of the first output n with n % O == c
-            if first >= n_new:
-                continue
-            z[first::O] = np.roll(u[first::O], (c * D + 1) % M, axis=1)
+            # z[n] = roll(u[n], s + 1), s = nD mod M = (n mod O) D: rows (J == 1) or
+            # columns j (J a multiple of O) of the outputs n with n % O == c
+            first = (c - self.n_out) % O
+            pick = (slice(first, None, O), slice(None)) if J == 1 else (slice(None), slice(first, None, O))
+            shift = (c * D + 1) % M
+            for a in range(O):
+                d0 = (a * D + shift) % M  # where u's block a begins in z; it may wrap
+                cut = min(D, M - d0)
+                z[pick + (slice(d0, d0 + cut),)] = u[pick + (a, slice(0, cut))]
+                if cut < D:
+                    z[pick + (slice(0, D - cut),)] = u[pick + (a, slice(cut, D))]
+        z = z.reshape(R * J, M * 2).view(np.complex64)[:n_new]
         y = scipy.fft.fft(z, axis=1, overwrite_x=True)
         self._hist = buf[n_new * D :].copy()
         self.n_out = m_end
-        if self.keep.size == M:
+        if self.keep is None:
             return y
         return y[:, self.keep]
+
+
+def _branch_matrices(hr, O, D):
+    """``G[b, i, q, a, j] = g_ab[qB + i - j]`` (zero outside ``0 .. KO-1``), and ``B``, ``Q``."""
+    K = hr.shape[0]
+    KO = K * O
+    B = max(16, -(-KO // 8) * 8)
+    Q = -(-(KO - 1 + B) // B)
+    g = np.zeros((D, O, KO), np.float32)  # g[b, a, l]
+    for a in range(O):
+        g[:, a, a::O] = hr[:, a * D : (a + 1) * D].T
+    i = np.arange(B)[:, None, None]
+    q = np.arange(Q)[None, :, None]
+    j = np.arange(B)[None, None, :]
+    lag = q * B + i - j  # (B, Q, B)
+    valid = (lag >= 0) & (lag < KO)
+    G = np.zeros((D, B, Q, O, B), np.float32)
+    for a in range(O):
+        G[:, :, :, a, :] = np.where(valid[None], g[:, a, np.clip(lag, 0, KO - 1)], 0)
+    return np.ascontiguousarray(G.reshape(D, B, Q * O * B)), B, Q
 
 
 class BankChannelizer:
@@ -178,7 +243,9 @@ class BankChannelizer:
         if not channels:
             raise ChannelizerError("channels: a bank needs at least one channel")
         used = sorted({int(b) for b, _ in channels})
-        self.bank = PolyphaseBank(prototype, bins, oversampling, keep=used)
+        if 2 * len(used) >= bins:  # most bins in use: no gather of the kept ones
+            used = list(range(bins))
+        self.bank = PolyphaseBank(prototype, bins, oversampling, keep=None if len(used) == bins else used)
         col = {b: i for i, b in enumerate(used)}
         self._cols = [col[int(b)] for b, _ in channels]
         fs_b = fs * oversampling / bins

@@ -38,7 +38,7 @@ from .cost import chain_cost
 from .planner import MIN_OVERSAMPLING, Candidate, plan_chain
 from .spec import ChainSpec
 
-__all__ = ["BankSpec", "BankResult", "plan_bank", "raster_offsets", "runner_cost"]
+__all__ = ["BankSpec", "BankResult", "per_channel_chain", "plan_bank", "raster_offsets", "runner_cost"]
 
 MAX_BINS = 16384
 MAX_GRID_DIVISOR = 16
@@ -253,10 +253,15 @@ def _stage_label(st):
     return f"FIR/{st.decimation}"
 
 
+def per_channel_chain(spec, output_rate):
+    """The chain each channel would run without a bank (neighbours removed where the output band holds them)."""
+    edge = spec.adjacent_edge if spec.adjacent_edge < output_rate / 2 else None
+    return plan_chain(spec.chain_spec(output_rate=output_rate, stopband_edge=edge))
+
+
 def _chains(spec, n, out):
-    edge = spec.adjacent_edge if spec.adjacent_edge < out / 2 else None
     try:
-        res = plan_chain(spec.chain_spec(output_rate=out, stopband_edge=edge))
+        res = per_channel_chain(spec, out)
     except ChannelizerError as exc:
         return Candidate(f"{n} chains", math.inf, reason=f"no chain: {exc}"), None
     each = runner_cost(res.plan.stages, fs=spec.input_rate)
