@@ -137,10 +137,18 @@ def _plan_bank(args):
 
 
 def _cmd_show(args):
+    from .run.bank_extraction import load_bank_plan_file
     from .views.table import format_plan
 
-    plan = read_plan(args.plan)
-    print(format_plan(plan))
+    bank = load_bank_plan_file(args.plan)
+    if bank is not None:
+        from .views.bank_table import format_bank_plan
+
+        print(format_bank_plan(bank[0]))
+        plan = bank[0].channel_plan()
+    else:
+        plan = read_plan(args.plan)
+        print(format_plan(plan))
     if args.plot:
         from .views.plots import plot_plan
 

@@ -120,6 +120,10 @@ def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
     )
 
 
+def _row(label, s_per_s):
+    return f"  {label:<34} {s_per_s:9.4f} s/s {1 / s_per_s:9.1f} x real time"
+
+
 def format_bank_report(r):
     """Printed figures and the two targets."""
     lines = [
@@ -128,13 +132,13 @@ def format_bank_report(r):
         f"  bank          {r.bank_layout}",
         f"  chain         {r.chain_layout}",
         "",
-        f"  one channel (chain)            {r.one_channel_s:9.4f} s/s   {1 / r.one_channel_s:8.1f} x real time",
-        f"  all {r.channels:>4} channels, bank        {r.bank_s:9.4f} s/s   {1 / r.bank_s:8.1f} x real time",
-        f"  all {r.channels:>4} channels, one chain each {r.per_channel_s:9.4f} s/s   {1 / r.per_channel_s:8.1f} x real time"
+        _row("one channel (chain)", r.one_channel_s),
+        _row(f"all {r.channels} channels, bank", r.bank_s),
+        _row(f"all {r.channels} channels, one chain each", r.per_channel_s)
         + (f"  (timed on {r.per_channel_measured}, scaled)" if r.per_channel_measured < r.channels else ""),
         "",
-        f"  bank / one channel             {r.bank_s / r.one_channel_s:9.2f} x   (target <= {TARGET_ALL_OVER_ONE:g} x for 12.5 kHz of 2.4 Msps)",
-        f"  one chain each / bank          {r.per_channel_s / r.bank_s:9.2f} x",
-        f"  bank speed                     {1 / r.bank_s:9.2f} x real time (target >= {TARGET_REAL_TIME:g} x for 200 kHz of 61.44 Msps)",
+        f"  {'bank / one channel':<34} {r.bank_s / r.one_channel_s:9.2f} x   (target <= {TARGET_ALL_OVER_ONE:g} x for 12.5 kHz of 2.4 Msps)",
+        f"  {'one chain each / bank':<34} {r.per_channel_s / r.bank_s:9.2f} x",
+        f"  {'bank speed':<34} {1 / r.bank_s:9.2f} x real time (target >= {TARGET_REAL_TIME:g} x for 200 kHz of 61.44 Msps)",
     ]
     return "\n".join(lines)
