@@ -42,6 +42,7 @@ __all__ = ["BankSpec", "BankResult", "per_channel_chain", "plan_bank", "raster_o
 
 MAX_BINS = 16384
 MAX_GRID_DIVISOR = 16
+MAX_PROTOTYPE_TAPS = 1 << 16
 
 
 @dataclass(frozen=True)
@@ -163,8 +164,12 @@ def _bin_map(offsets, fs, M):
     return bins, res
 
 
+def _kaiser_length(fs, fp, fst, atten):
+    return scipy.signal.kaiserord(atten, (fst - fp) / (fs / 2))
+
+
 def _kaiser_prototype(fs, M, fp, fst, atten):
-    n, beta = scipy.signal.kaiserord(atten, (fst - fp) / (fs / 2))
+    n, beta = _kaiser_length(fs, fp, fst, atten)
     K = max(1, -(-n // M))
     h = scipy.signal.firwin(K * M, (fp + fst) / 2, window=("kaiser", beta), fs=fs)
     return h / h.sum()
@@ -192,6 +197,9 @@ def _design(spec, offsets, M, O, mode):
     label = f"bank M={M} O={O} (neighbours: {'prototype' if mode == 'bank' else 'fine stages'})"
     if fst <= fp:
         return Candidate(label, math.inf, reason=f"no transition band left ({fp:g} to {fst:g} Hz)")
+    n_taps = _kaiser_length(fs, fp, fst, spec.rejection_db + 3.0)[0]
+    if n_taps > MAX_PROTOTYPE_TAPS:
+        return Candidate(label, math.inf, reason=f"prototype of about {n_taps} taps (transition {fst - fp:g} Hz)")
     out = spec.output_rate or fs_b / max(1, math.floor(fs_b / (MIN_OVERSAMPLING * bw) + 1e-9))
     if out > fs_b * (1 + 1e-9):
         return Candidate(label, math.inf, reason=f"bin rate {fs_b:g} Hz is below the output rate")
