@@ -10,15 +10,13 @@ a chain plan.  What the bank computes is described in
 """
 
 from dataclasses import dataclass, field
-import hashlib
 import math
 
 import numpy as np
-import yaml
 
 from ..errors import ChannelizerError, shown
 from .bank_response import prototype_magnitude
-from .plan import Plan, _Validator, _kind, _plain, load_plan_text, stage_to_dict
+from .plan import Plan, PlanText, _Validator, _kind, _plain, stage_to_dict
 from .stages import FirStage, ResamplerStage, chain_rates
 
 __all__ = ["BankPlan", "BankFrontStage", "BANK_FORMAT", "is_bank_data"]
@@ -51,7 +49,7 @@ class BankFrontStage(FirStage):
 
 
 @dataclass(frozen=True)
-class BankPlan:
+class BankPlan(PlanText):
     """A planned filter bank for every channel of a raster.
 
     Attributes
@@ -146,19 +144,6 @@ class BankPlan:
             "stages": [stage_to_dict(st) for st in self.stages],
             "predicted": _plain(self.predicted),
         }
-
-    def to_yaml(self):
-        """YAML text; floats are written so that YAML 1.1 reads them back as floats."""
-        return yaml.safe_dump(self.to_dict(), sort_keys=False, default_flow_style=None, width=100)
-
-    def identity(self):
-        """SHA-256 of the plan's YAML text."""
-        return hashlib.sha256(self.to_yaml().encode("utf-8")).hexdigest()
-
-    @classmethod
-    def from_yaml(cls, text, *, source="bank plan"):
-        """Read and validate a bank plan; ``source`` names the file in error messages."""
-        return cls.from_dict(load_plan_text(text, source=source), source=source)
 
     @classmethod
     def from_dict(cls, data, *, source="bank plan"):

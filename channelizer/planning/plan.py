@@ -17,14 +17,31 @@ from ..errors import shown
 from ..errors import ChannelizerError
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates, is_halfband
 
-__all__ = ["Plan", "PLAN_FORMAT", "MAX_PLAN_BYTES", "load_plan_text", "stage_to_dict"]
+__all__ = ["Plan", "PlanText", "PLAN_FORMAT", "MAX_PLAN_BYTES", "load_plan_text", "stage_to_dict"]
 
 PLAN_FORMAT = "channelizer-plan/1"
 MAX_PLAN_BYTES = 16 * 1024 * 1024
 
 
+class PlanText:
+    """YAML text in and out, and identity, for a plan class with ``to_dict``/``from_dict``."""
+
+    def to_yaml(self):
+        """YAML text; floats are written so that YAML 1.1 reads them back as floats."""
+        return yaml.safe_dump(self.to_dict(), sort_keys=False, default_flow_style=None, width=100)
+
+    @classmethod
+    def from_yaml(cls, text, *, source="plan"):
+        """Read and validate a plan; ``source`` names the file in error messages."""
+        return cls.from_dict(load_plan_text(text, source=source), source=source)
+
+    def identity(self):
+        """SHA-256 of the plan's YAML text: the same plan always has the same identity."""
+        return hashlib.sha256(self.to_yaml().encode("utf-8")).hexdigest()
+
+
 @dataclass(frozen=True)
-class Plan:
+class Plan(PlanText):
     """A planned chain.
 
     Attributes
@@ -59,15 +76,6 @@ class Plan:
             "stages": stages,
             "predicted": _plain(self.predicted),
         }
-
-    def to_yaml(self):
-        """YAML text; floats are written so that YAML 1.1 reads them back as floats."""
-        return yaml.safe_dump(self.to_dict(), sort_keys=False, default_flow_style=None, width=100)
-
-    @classmethod
-    def from_yaml(cls, text, *, source="plan"):
-        """Read and validate a plan; ``source`` names the file in error messages."""
-        return cls.from_dict(load_plan_text(text, source=source), source=source)
 
     @classmethod
     def from_dict(cls, data, *, source="plan"):
@@ -117,9 +125,6 @@ class Plan:
         """Input rate over output rate."""
         return self.input_rate / self.output_rate
 
-    def identity(self):
-        """SHA-256 of the plan's YAML text: the same chain always has the same identity."""
-        return hashlib.sha256(self.to_yaml().encode("utf-8")).hexdigest()
 
 
 def load_plan_text(text, *, source="plan"):

@@ -11,12 +11,11 @@ import math
 
 from ..engines.filterbank import BankChannelizer
 from ..errors import ChannelizerError
-from ..io.atomic import FileSet
 from ..io.channels import resolve_offset
 from ..planning.bank import BankPlan, is_bank_data
 from ..planning.plan import load_plan_text
 from ..units import format_hz
-from .extraction import _extract_and_summarise, _plot, read_plan_bytes
+from .extraction import read_plan_bytes, run_requests
 from .processor import ChannelRequest, plan_identity
 
 __all__ = ["load_bank_plan_file", "raster_channel_name", "select_channels", "run_bank_extraction"]
@@ -104,13 +103,4 @@ def run_bank_extraction(
     kw = {"engine": engine}
     if block_size is not None:
         kw["block_size"] = block_size
-    files = FileSet()  # the recordings and the summary appear together, or not at all
-    try:
-        result = _extract_and_summarise(capture, requests, out_dir, files, output_format, False, nonfinite, progress, plots, audit, kw)
-        files.commit()
-    except BaseException:
-        files.abort()
-        raise
-    if plots:
-        _plot(result, requests, capture, out_dir)
-    return result
+    return run_requests(capture, requests, out_dir, (output_format, False, nonfinite, progress, plots, audit), kw)

@@ -67,6 +67,16 @@ def run_extraction(
         plan, ident = plans[path]
         requests.append(ChannelRequest(e.name, resolve_offset(e, capture.center_frequency), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
+    return run_requests(capture, requests, out_dir, (output_format, bit_true, nonfinite, progress, plots, audit), kw)
+
+
+def run_requests(capture, requests, out_dir, options, kw):
+    """Extract ``requests``, write the summary (all committed together) and the plots.
+
+    ``options`` is ``(output_format, bit_true, nonfinite, progress, plots, audit)``;
+    ``kw`` goes to :func:`extract_channels` (block size, engine).
+    """
+    output_format, bit_true, nonfinite, progress, plots, audit = options
     files = FileSet()  # the recordings and the summary appear together, or not at all
     try:
         result = _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)
