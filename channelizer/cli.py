@@ -311,6 +311,10 @@ def _cmd_demo(args):
     ex = result.extraction
     flagged = sum(a["above_noise"] for c in ex.channels for a in c.alias_audit)
     print(f"extract   {len(ex.channels)} channels in one pass -> {os.path.dirname(ex.summary_path)} ({flagged} folded signals above noise)")
+    if result.raster is not None:
+        plan, _, rex = result.raster
+        print(f"raster    {plan.count} channels through a {plan.bins}-bin filter bank in one pass -> "
+              f"{os.path.dirname(rex.summary_path)} ({rex.seconds:.2f} s)")
     if result.verification is not None:
         v = result.verification
         print(f"verify    measured rejection {v.measured_rejection_db:.1f} dB, ripple {v.measured_ripple_db:.4f} dB: "
