@@ -337,11 +337,20 @@ def _cmd_verify(args):
     from .checks.verify import verify_plan
     from .views.verify_plot import plot_verification
 
-    plan = read_plan(args.plan)
+    from .run.bank_extraction import load_bank_plan_file
+
+    bank = load_bank_plan_file(args.plan)
+    if bank is not None and (args.bit_true or args.plot):
+        raise ChannelizerError(f"--{'bit-true' if args.bit_true else 'plot'} does not cover filter-bank plans yet; verify {args.plan} without it")
     for path in (args.plot, args.json):
         if path:
             _check_output_path(path)
-    v = verify_plan(plan, bit_true=args.bit_true, tones=args.tones)
+    if bank is not None:
+        from .checks.bank_verify import verify_bank
+
+        v = verify_bank(bank[0], **({} if args.tones is None else {"tones": args.tones}))
+    else:
+        v = verify_plan(read_plan(args.plan), bit_true=args.bit_true, tones=args.tones)
     print("\n".join(v.summary_lines()))
     if args.plot:
         plot_verification(v, args.plot)

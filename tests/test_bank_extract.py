@@ -126,7 +126,7 @@ def test_off_raster_frequency_names_the_nearest(bank, capture, tmp_path):
     [
         (["extract", "{cap}", "--plan", "{plan}", "--out", "{out}", "--bit-true"], "--bit-true does not cover filter-bank plans"),
         (["export", "{plan}", "--out", "{out}"], "filter-bank plan"),
-        (["verify", "{plan}"], "filter-bank plan"),
+        (["verify", "{plan}", "--bit-true"], "--bit-true does not cover filter-bank plans"),
         (["extract", "{cap}", "--plan", "{plan}", "--out", "{out}", "--channel", "x=161.14M"], "nearest raster frequency"),
     ],
 )

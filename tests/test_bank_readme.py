@@ -46,7 +46,7 @@ def test_readme_examples_run_as_shown(tmp_path, capsys, monkeypatch):
     monkeypatch.chdir(tmp_path)
     os.symlink(ROOT / "captures", tmp_path / "captures")
     examples = [(c, e) for c, e in _examples() if not c.startswith("channelizer bench")]
-    assert len(examples) == 3
+    assert len(examples) == 4
     for cmd, expect in examples:
         status = main(shlex.split(cmd)[1:])
         got = capsys.readouterr()
