@@ -96,6 +96,7 @@ class PolyphaseBank:
         self.keep = None if keep is None else np.asarray(keep, dtype=np.intp)
         if self.keep is not None and (self.keep.ndim != 1 or self.keep.size == 0 or self.keep.min() < 0 or self.keep.max() >= M):
             raise ChannelizerError(f"keep: expected bin numbers from 0 to {M - 1}")
+        self._runs = None if self.keep is None else _runs(self.keep)
         # hr[m, r] = h[KM-1-mM-r], laid out as float32 pairs to multiply I and Q alike
         hr = h[::-1].reshape(self.K, M).astype(np.float32)
         # branch filters as one batched matrix product when few taps are structural
@@ -193,7 +194,23 @@ class PolyphaseBank:
         self.n_out = m_end
         if self.keep is None:
             return y
-        return y[:, self.keep]
+        out = np.empty((n_new, self.keep.size), np.complex64)
+        for d0, first, count, step in self._runs:  # strided copies: far quicker than a gather
+            out[:, d0 : d0 + count] = y[:, first : first + (count - 1) * step + 1 : step]
+        return out
+
+
+def _runs(keep):
+    """``keep`` as arithmetic runs ``(position, first bin, count, step)``."""
+    runs, i = [], 0
+    while i < keep.size:
+        step = int(keep[i + 1] - keep[i]) if i + 1 < keep.size and keep[i + 1] > keep[i] else 1
+        j = i + 1
+        while j < keep.size and keep[j] - keep[j - 1] == step:
+            j += 1
+        runs.append((i, int(keep[i]), j - i, step))
+        i = j
+    return runs
 
 
 def _branch_matrices(hr, O, D):
