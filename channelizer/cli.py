@@ -22,10 +22,10 @@ __all__ = ["main", "build_parser"]
 EXIT_INCONCLUSIVE = 3
 
 
-def _rate(name):
+def _rate(name, *, allow_negative=False):
     def parse(text):
         try:
-            return parse_frequency(text, name=name, allow_negative=False)
+            return parse_frequency(text, name=name, allow_negative=allow_negative)
         except ChannelizerError as exc:
             raise argparse.ArgumentTypeError(str(exc)) from None
 
@@ -62,6 +62,9 @@ def read_plan(path):
 
 def _cmd_plan(args):
     from .io.atomic import write_text_atomic
+
+    if args.spacing is not None or args.first is not None or args.last is not None:
+        return _plan_bank(args)
     from .planning.planner import plan_chain
     from .planning.spec import ChainSpec
     from .views.table import format_alternatives, format_plan
@@ -102,11 +105,58 @@ def _cmd_plan(args):
     return 0
 
 
+def _plan_bank(args):
+    from .io.atomic import write_text_atomic
+    from .planning.bank import BankPlan
+    from .planning.bank_planner import BankSpec, plan_bank
+    from .views.bank_table import format_bank_plan
+    from .views.table import format_alternatives, format_plan
+
+    if args.spacing is None:
+        raise ChannelizerError("--first and --last need --spacing (the raster of a filter bank)")
+    for opt in ("stopband_edge", "clock"):
+        if getattr(args, opt) is not None:
+            raise ChannelizerError(f"--{opt.replace('_', '-')} does not apply to a bank plan (--spacing)")
+    if args.objective != "cpu":
+        raise ChannelizerError("a bank plan is costed for --objective cpu only")
+    spec = BankSpec(
+        input_rate=args.rate, bandwidth=args.bandwidth, spacing=args.spacing, output_rate=args.output_rate,
+        first=args.first, last=args.last, ripple_db=args.ripple_db, rejection_db=args.rejection_db,
+        input_bits=args.input_bits, output_bits=args.output_bits,
+    )
+    for path in (args.out, args.plot):
+        if path:
+            _check_output_path(path)
+    result = plan_bank(spec)
+    bank = isinstance(result.plan, BankPlan)
+    print(format_bank_plan(result.plan) if bank else format_plan(result.plan))
+    if not bank:
+        print(f"\n{result.channels} channels: one chain each is cheaper than a bank; run extract with this plan and --channel")
+    print(format_alternatives(result.alternatives, limit=6))
+    if args.out:
+        write_text_atomic(args.out, result.plan.to_yaml())
+        print(f"\nplan written to {args.out}")
+    if args.plot:
+        from .views.plots import plot_plan
+
+        plot_plan(result.plan.channel_plan() if bank else result.plan, args.plot)
+        print(f"response plot written to {args.plot}")
+    return 0
+
+
 def _cmd_show(args):
+    from .run.bank_extraction import load_bank_plan_file
     from .views.table import format_plan
 
-    plan = read_plan(args.plan)
-    print(format_plan(plan))
+    bank = load_bank_plan_file(args.plan)
+    if bank is not None:
+        from .views.bank_table import format_bank_plan
+
+        print(format_bank_plan(bank[0]))
+        plan = bank[0].channel_plan()
+    else:
+        plan = read_plan(args.plan)
+        print(format_plan(plan))
     if args.plot:
         from .views.plots import plot_plan
 
@@ -150,15 +200,17 @@ def _cmd_extract(args):
     if args.channels:
         entries += parse_channel_list(_read_text(args.channels, "channel list"), source=args.channels)
         base = os.path.dirname(os.path.abspath(args.channels))
-    if not entries:
+    bank = None
+    if args.plan:
+        from .run.bank_extraction import load_bank_plan_file
+
+        bank = load_bank_plan_file(args.plan)  # None for a chain plan
+    if not entries and bank is None:
         raise ChannelizerError("no channel to extract: give --channel NAME=FREQ or --channels FILE")
+    if bank is not None and args.bit_true:
+        raise ChannelizerError("--bit-true does not cover filter-bank plans yet; drop --bit-true or plan a chain")
     capture = _open_capture(args)
-    result = run_extraction(
-        capture,
-        entries,
-        args.out,
-        plan_path=args.plan,
-        base_dir=base,
+    common = dict(
         output_format=args.output_format,
         bit_true=args.bit_true,
         plots=not args.no_plots,
@@ -168,11 +220,17 @@ def _cmd_extract(args):
         trim_settling=args.trim_settling,
         audit_resolution=args.audit_resolution,
     )
+    if bank is not None:
+        from .run.bank_extraction import run_bank_extraction
+
+        result = run_bank_extraction(capture, bank[0], args.out, entries=entries, plan_id=bank[1], plan_source=args.plan, **common)
+    else:
+        result = run_extraction(capture, entries, args.out, plan_path=args.plan, base_dir=base, **common)
     from .units import format_hz
 
     if capture.nonfinite_count:
         print(f"warning: {capture.nonfinite_count} non-finite samples were replaced by zero", file=sys.stderr)
-    mode = "bit-true" if args.bit_true else "float"
+    mode = "bit-true" if args.bit_true else "filter-bank" if bank is not None else "float"
     print(
         f"{capture.path}: {result.input_samples} samples at {format_hz(capture.sample_rate, 'sps')}, "
         f"{len(result.channels)} channel(s), {mode} path, {result.seconds:.2f} s "
@@ -307,6 +365,10 @@ def _cmd_demo(args):
     ex = result.extraction
     flagged = sum(a["above_noise"] for c in ex.channels for a in c.alias_audit)
     print(f"extract   {len(ex.channels)} channels in one pass -> {os.path.dirname(ex.summary_path)} ({flagged} folded signals above noise)")
+    if result.raster is not None:
+        plan, _, rex = result.raster
+        print(f"raster    {plan.count} channels through a {plan.bins}-bin filter bank in one pass -> "
+              f"{os.path.dirname(rex.summary_path)} ({rex.seconds:.2f} s)")
     if result.verification is not None:
         v = result.verification
         print(f"verify    measured rejection {v.measured_rejection_db:.1f} dB, ripple {v.measured_ripple_db:.4f} dB: "
@@ -329,11 +391,20 @@ def _cmd_verify(args):
     from .checks.verify import verify_plan
     from .views.verify_plot import plot_verification
 
-    plan = read_plan(args.plan)
+    from .run.bank_extraction import load_bank_plan_file
+
+    bank = load_bank_plan_file(args.plan)
+    if bank is not None and (args.bit_true or args.plot):
+        raise ChannelizerError(f"--{'bit-true' if args.bit_true else 'plot'} does not cover filter-bank plans yet; verify {args.plan} without it")
     for path in (args.plot, args.json):
         if path:
             _check_output_path(path)
-    v = verify_plan(plan, bit_true=args.bit_true, tones=args.tones)
+    if bank is not None:
+        from .checks.bank_verify import verify_bank
+
+        v = verify_bank(bank[0], **({} if args.tones is None else {"tones": args.tones}))
+    else:
+        v = verify_plan(read_plan(args.plan), bit_true=args.bit_true, tones=args.tones)
     print("\n".join(v.summary_lines()))
     if args.plot:
         plot_verification(v, args.plot)
@@ -364,7 +435,13 @@ def _cmd_bench(args):
 
     if args.json:
         _check_output_path(args.json)
-    if args.soak:
+    if args.spacing is not None:
+        from .bench.bank_speed import format_bank_report, run_bank_benchmark
+
+        report = run_bank_benchmark(spacing=args.spacing, rate=args.rate or 2.4e6, bandwidth=args.bandwidth, seconds=args.seconds or 0.5)
+        print(format_bank_report(report))
+        doc = report.to_dict()
+    elif args.soak:
         report = run_soak(gigabytes=args.soak, channels=4, progress=not args.quiet)
         print(format_soak_report(report))
         doc = report.to_dict()
@@ -374,7 +451,7 @@ def _cmd_bench(args):
         for row in planner["specs"]:
             print(f"  {row['seconds']:7.3f} s  {row['layout']:<28} {row['spec']}")
         print(f"  worst {planner['worst_s']:.3f} s (target < {planner['target_s']:g} s): {'met' if planner['met'] else 'MISSED'}\n")
-        report = run_benchmark(seconds=args.seconds, channels=args.channels, progress=not args.quiet)
+        report = run_benchmark(seconds=args.seconds or 2.0, channels=args.channels, progress=not args.quiet)
         print(format_report(report))
         doc = report.to_dict()
         doc["planner"] = planner
@@ -386,9 +463,12 @@ def _cmd_bench(args):
 
 def _register_bench(sub):
     b = sub.add_parser("bench", help="speed and memory figures as ratios against a reference run", description="Measure the planner, and extraction speed and memory against a scipy.signal.resample_poly reference in the same process; --soak runs the large-file memory check.")
-    b.add_argument("--seconds", type=_positive_float, default=2.0, help="length of the synthetic 61.44 Msps capture in seconds (default 2)")
+    b.add_argument("--seconds", type=_positive_float, default=None, help="length of the synthetic capture in seconds (default 2; 0.5 with --spacing)")
     b.add_argument("--channels", type=int, default=8, help="channels of the many-channel run (default 8)")
     b.add_argument("--soak", type=_positive_float, metavar="GB", help="instead: extract 4 channels from a capture of GB gigabytes and report peak memory")
+    b.add_argument("--spacing", type=_rate("spacing"), default=None, help="instead: every channel of this raster through the filter bank, against one channel and one chain each")
+    b.add_argument("--rate", type=_rate("rate"), default=None, help="with --spacing: capture rate (default 2.4M)")
+    b.add_argument("--bandwidth", type=_rate("bandwidth"), default=None, help="with --spacing: channel width (default 0.8 x spacing)")
     b.add_argument("--json", metavar="FILE", help="write the figures as JSON")
     b.add_argument("--quiet", action="store_true", help="no progress lines")
     b.set_defaults(func=_cmd_bench)
@@ -445,6 +525,9 @@ def build_parser():
     q.add_argument("--objective", choices=["cpu", "hardware"], default="cpu", help="what to minimise: cpu (multiplies per second in software) or hardware (multipliers at --clock); default cpu")
     q.add_argument("--clock", type=_rate("clock"), default=None, help="hardware clock in Hz that multipliers are shared at, with --objective hardware only (default: the input rate)")
     q.add_argument("--stopband-edge", type=_rate("stopband edge"), default=None, help="offset in Hz from the channel centre beyond which everything is also attenuated by --rejection-db (removes the neighbours; default: only what folds onto the passband)")
+    q.add_argument("--spacing", type=_rate("spacing"), default=None, help="plan a filter bank for every channel on this raster spacing")
+    q.add_argument("--first", type=_rate("first", allow_negative=True), default=None, help="with --spacing: first raster channel, offset from the capture centre (default: the whole band)")
+    q.add_argument("--last", type=_rate("last", allow_negative=True), default=None, help="with --spacing: last raster channel, offset from the capture centre")
     q.add_argument("--out", metavar="FILE.yaml", help="write the plan file")
     q.add_argument("--plot", metavar="FILE.png", help="write the response figure")
     q.set_defaults(func=_cmd_plan)

@@ -74,3 +74,14 @@ def test_demo_outputs(demo):
     ch3 = next(c for c in ex.channels if c.name == "ridge-ch3")
     assert any(abs(a["signal_center_hz"] - 161.3065e6) < 5e3 for a in ch3.alias_audit)
     assert not any(a["above_noise"] for a in ch3.alias_audit)
+
+
+def test_demo_takes_the_whole_raster_through_the_bank(demo):
+    plan, plan_file, ex = demo.raster
+    # 10 kHz channels every 12.5 kHz of 2.4 Msps: centres |i| 12.5k + 5k <= 1.2M, |i| <= 95 (common practice)
+    assert plan.count == len(ex.channels) == 191
+    powers = {c.name: c.mean_power_dbfs for c in ex.channels}
+    # ridge-ch4 is placed at +612.5 kHz and -24 dBFS in the invented scene (demo/scene.py)
+    assert abs(powers["ch-161612500"] - (-24.0)) < 1.0
+    text = open(demo.report_path, encoding="utf-8").read()
+    assert "Every raster channel through the filter bank" in text

@@ -23,6 +23,9 @@ DEMO_SECONDS = 0.4
 #: Voice channels: 11 kHz occupied on a 12.5 kHz raster, to 48 ksps, neighbours removed from 7 kHz.
 VOICE_SPEC = dict(input_rate=2.4e6, bandwidth=11e3, output_rate=48e3, stopband_edge=7e3, ripple_db=0.1, rejection_db=80.0)
 #: The data carrier: about 34 kHz occupied, to 60 ksps.
+#: The scene's whole raster, taken through one filter bank: 10 kHz channels every 12.5 kHz.
+RASTER_SPACING = 12.5e3
+RASTER_BANDWIDTH = 10e3
 DATA_SPEC = dict(input_rate=2.4e6, bandwidth=40e3, output_rate=60e3, ripple_db=0.1, rejection_db=80.0)
 
 
@@ -80,6 +83,7 @@ class DemoResult:
     survey: object = None
     verification: object = None
     figures: dict = field(default_factory=dict)
+    raster: object = None  # (BankPlan, plan file, ExtractResult) of the whole raster
 
 
 def _find_capture(capture_path):
@@ -120,6 +124,30 @@ def _plan_of(ch, entries):
 
     entry = next((e for e in entries if e.name == ch.name and e.plan), None)
     return None if entry is None else load_plan_file(entry.plan)[0]
+def _raster(capture, out_dir, ann, figures, progress):
+    """Every 12.5 kHz channel of the scene through one filter bank, and its power strip."""
+    from ..planning.bank import BankPlan
+    from ..planning.bank_planner import BankSpec, plan_bank
+    from ..run.bank_extraction import run_bank_extraction
+    from ..views.bank_strip import plot_channel_strip
+
+    result = plan_bank(BankSpec(input_rate=capture.sample_rate, bandwidth=RASTER_BANDWIDTH, spacing=RASTER_SPACING))
+    if not isinstance(result.plan, BankPlan):
+        return None
+    plan_file = os.path.join(out_dir, "plan-raster.yaml")
+    write_text_atomic(plan_file, result.plan.to_yaml())
+    ex = run_bank_extraction(capture, result.plan, os.path.join(out_dir, "raster"), plan_source=plan_file,
+                             plots=False, audit=False, progress=progress)
+    labels = {}
+    centre = capture.center_frequency or 0.0
+    for c in ex.channels:
+        f = c.center_frequency if c.center_frequency is not None else centre + c.offset
+        for a in ann:
+            if a["core:freq_lower_edge"] <= f <= a["core:freq_upper_edge"] and a.get("core:label"):
+                labels[c.name] = a["core:label"]
+    figures["raster"] = os.path.join(out_dir, "raster-strip.png")
+    plot_channel_strip(ex.channels, figures["raster"], labels=labels, spacing=RASTER_SPACING)
+    return result.plan, plan_file, ex
 
 
 def run_demo(out_dir, *, capture_path=None, progress=False):
@@ -176,6 +204,8 @@ def run_demo(out_dir, *, capture_path=None, progress=False):
     extraction = run_extraction(capture, entries, ch_dir, base_dir="/", progress=progress)
     _before_after(capture, extraction, entries, out_dir, figures)
 
+    raster = _raster(capture, out_dir, ann, figures, progress)
+
     verification = None
     try:
         from ..checks.verify import verify_plan
@@ -197,6 +227,7 @@ def run_demo(out_dir, *, capture_path=None, progress=False):
         survey=survey,
         verification=verification,
         figures=figures,
+        raster=raster,
     )
     result.seconds = time.perf_counter() - t0
     write_report(result, annotations=ann)

@@ -18,14 +18,31 @@ from ..errors import ChannelizerError
 from ..units import format_hz
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates, is_halfband
 
-__all__ = ["Plan", "PLAN_FORMAT", "MAX_PLAN_BYTES"]
+__all__ = ["Plan", "PlanText", "PLAN_FORMAT", "MAX_PLAN_BYTES", "load_plan_text", "stage_to_dict"]
 
 PLAN_FORMAT = "channelizer-plan/1"
 MAX_PLAN_BYTES = 16 * 1024 * 1024
 
 
+class PlanText:
+    """YAML text in and out, and identity, for a plan class with ``to_dict``/``from_dict``."""
+
+    def to_yaml(self):
+        """YAML text; floats are written so that YAML 1.1 reads them back as floats."""
+        return yaml.safe_dump(self.to_dict(), sort_keys=False, default_flow_style=None, width=100)
+
+    @classmethod
+    def from_yaml(cls, text, *, source="plan"):
+        """Read and validate a plan; ``source`` names the file in error messages."""
+        return cls.from_dict(load_plan_text(text, source=source), source=source)
+
+    def identity(self):
+        """SHA-256 of the plan's YAML text: the same plan always has the same identity."""
+        return hashlib.sha256(self.to_yaml().encode("utf-8")).hexdigest()
+
+
 @dataclass(frozen=True)
-class Plan:
+class Plan(PlanText):
     """A planned chain.
 
     Attributes
@@ -50,30 +67,7 @@ class Plan:
 
     # ------------------------------------------------------------------ YAML
     def to_dict(self):
-        stages = []
-        for st in self.stages:
-            if isinstance(st, CicStage):
-                d = {
-                    "kind": "cic",
-                    "decimation": st.decimation,
-                    "order": st.order,
-                    "differential_delay": st.differential_delay,
-                    "register_bits": st.register_bits,
-                    "pruned_bits": list(st.pruned_bits),
-                }
-            elif isinstance(st, ResamplerStage):
-                d = {"kind": "resampler", "interpolation": st.interpolation, "decimation": st.decimation}
-                if st.coefficient_bits is not None:
-                    d["coefficient_bits"] = st.coefficient_bits
-                    d["coefficient_frac_bits"] = st.coefficient_frac_bits
-                d["taps"] = [float(t) for t in st.taps]
-            else:
-                d = {"kind": st.kind, "role": st.role, "decimation": st.decimation}
-                if st.coefficient_bits is not None:
-                    d["coefficient_bits"] = st.coefficient_bits
-                    d["coefficient_frac_bits"] = st.coefficient_frac_bits
-                d["taps"] = [float(t) for t in st.taps]
-            stages.append(d)
+        stages = [stage_to_dict(st) for st in self.stages]
         return {
             "format": PLAN_FORMAT,
             "input_rate": float(self.input_rate),
@@ -84,46 +78,14 @@ class Plan:
             "predicted": _plain(self.predicted),
         }
 
-    def to_yaml(self):
-        """YAML text; floats are written so that YAML 1.1 reads them back as floats."""
-        return yaml.safe_dump(self.to_dict(), sort_keys=False, default_flow_style=None, width=100)
-
-    @classmethod
-    def from_yaml(cls, text, *, source="plan"):
-        """Read and validate a plan; ``source`` names the file in error messages."""
-        if isinstance(text, bytes):
-            if len(text) > MAX_PLAN_BYTES:
-                raise ChannelizerError(f"{source}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
-            try:
-                text = text.decode("utf-8")
-            except UnicodeDecodeError as exc:
-                raise ChannelizerError(f"{source}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
-        if len(text) > MAX_PLAN_BYTES:
-            raise ChannelizerError(f"{source}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
-        try:
-            data = yaml.safe_load(text)
-        except yaml.YAMLError as exc:
-            mark = getattr(exc, "problem_mark", None)
-            where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
-            problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
-            tag = problem.partition("could not determine a constructor for the tag ")[2]
-            if isinstance(exc, yaml.constructor.ConstructorError) and tag:
-                raise ChannelizerError(f"{source}: YAML tag {tag}{where} is not allowed; a plan holds plain YAML only") from None
-            raise ChannelizerError(f"{source}: malformed YAML{where}: {problem}") from None
-        except RecursionError:
-            raise ChannelizerError(f"{source}: malformed YAML: nested too deeply to read") from None
-        except ValueError as exc:  # e.g. an integer of more digits than Python converts
-            raise ChannelizerError(f"{source}: a YAML value cannot be read ({str(exc).splitlines()[0]})") from None
-        if data is None:
-            raise ChannelizerError(f"{source}: the file is empty; expected a mapping of plan keys")
-        return cls.from_dict(data, source=source)
-
     @classmethod
     def from_dict(cls, data, *, source="plan"):
         v = _Validator(source)
         if not isinstance(data, dict):
             raise ChannelizerError(f"{source}: expected a mapping of plan keys, got {_kind(data)}")
         fmt = data.get("format")
+        if fmt == "channelizer-bank/1":
+            raise ChannelizerError(f"{source}: a filter-bank plan; this command takes a chain plan (run a bank plan with extract --plan)")
         if fmt != PLAN_FORMAT:
             raise ChannelizerError(f"{source}: format must be {PLAN_FORMAT!r}, got {shown(fmt)}")
         input_rate = v.positive(data, "input_rate")
@@ -131,23 +93,7 @@ class Plan:
         bandwidth = v.positive(data, "bandwidth")
         if bandwidth >= output_rate:
             raise ChannelizerError(f"{source}: bandwidth {bandwidth:g} must be below output_rate {output_rate:g}")
-        spec = v.mapping(data, "spec")
-        spec_out = {
-            "ripple_db": v.positive(spec, "ripple_db", "spec.ripple_db"),
-            "rejection_db": v.positive(spec, "rejection_db", "spec.rejection_db"),
-        }
-        if "objective" in spec:
-            if spec["objective"] not in ("cpu", "hardware"):
-                raise ChannelizerError(f"{source}: spec.objective must be cpu or hardware, got {shown(spec['objective'])}")
-            spec_out["objective"] = spec["objective"]
-        bits = v.mapping(spec, "bits", "spec.bits")
-        spec_out["bits"] = {k: v.integer(bits, k, f"spec.bits.{k}", lo=1, hi=64) for k in ("input", "output")}
-        if "coefficient" in bits:
-            spec_out["bits"]["coefficient"] = v.integer(bits, "coefficient", "spec.bits.coefficient", lo=2, hi=64)
-        if spec.get("clock") is not None:
-            spec_out["clock"] = v.positive(spec, "clock", "spec.clock")
-        if spec.get("stopband_edge") is not None:
-            spec_out["stopband_edge"] = v.positive(spec, "stopband_edge", "spec.stopband_edge")
+        spec_out = v.spec(data)
         raw_stages = data.get("stages")
         if not isinstance(raw_stages, list) or not raw_stages:
             raise ChannelizerError(f"{source}: stages must be a non-empty list")
@@ -180,9 +126,65 @@ class Plan:
         """Input rate over output rate."""
         return self.input_rate / self.output_rate
 
-    def identity(self):
-        """SHA-256 of the plan's YAML text: the same chain always has the same identity."""
-        return hashlib.sha256(self.to_yaml().encode("utf-8")).hexdigest()
+
+
+def load_plan_text(text, *, source="plan"):
+    """Parse a plan file's bytes or text with ``yaml.safe_load``; a one-line error names ``source``.
+
+    Returns the loaded data (not yet validated).
+    """
+    if isinstance(text, bytes):
+        if len(text) > MAX_PLAN_BYTES:
+            raise ChannelizerError(f"{source}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
+        try:
+            text = text.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise ChannelizerError(f"{source}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    if len(text) > MAX_PLAN_BYTES:
+        raise ChannelizerError(f"{source}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
+    try:
+        data = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        tag = problem.partition("could not determine a constructor for the tag ")[2]
+        if isinstance(exc, yaml.constructor.ConstructorError) and tag:
+            raise ChannelizerError(f"{source}: YAML tag {tag}{where} is not allowed; a plan holds plain YAML only") from None
+        raise ChannelizerError(f"{source}: malformed YAML{where}: {problem}") from None
+    except RecursionError:
+        raise ChannelizerError(f"{source}: malformed YAML: nested too deeply to read") from None
+    except ValueError as exc:  # e.g. an integer of more digits than Python converts
+        raise ChannelizerError(f"{source}: a YAML value cannot be read ({str(exc).splitlines()[0]})") from None
+    if data is None:
+        raise ChannelizerError(f"{source}: the file is empty; expected a mapping of plan keys")
+    return data
+
+
+def stage_to_dict(st):
+    """A stage as the plain mapping a plan file holds (read back by the plan validator)."""
+    if isinstance(st, CicStage):
+        d = {
+            "kind": "cic",
+            "decimation": st.decimation,
+            "order": st.order,
+            "differential_delay": st.differential_delay,
+            "register_bits": st.register_bits,
+            "pruned_bits": list(st.pruned_bits),
+        }
+    elif isinstance(st, ResamplerStage):
+        d = {"kind": "resampler", "interpolation": st.interpolation, "decimation": st.decimation}
+        if st.coefficient_bits is not None:
+            d["coefficient_bits"] = st.coefficient_bits
+            d["coefficient_frac_bits"] = st.coefficient_frac_bits
+        d["taps"] = [float(t) for t in st.taps]
+    else:
+        d = {"kind": st.kind, "role": st.role, "decimation": st.decimation}
+        if st.coefficient_bits is not None:
+            d["coefficient_bits"] = st.coefficient_bits
+            d["coefficient_frac_bits"] = st.coefficient_frac_bits
+        d["taps"] = [float(t) for t in st.taps]
+    return d
 
 
 def _plain(obj):
@@ -263,6 +265,27 @@ class _Validator:
         if not isinstance(x, dict):
             self.fail(where, f"expected a mapping, got {type(x).__name__ if x is not None else 'nothing'}")
         return x
+
+    def spec(self, data):
+        """The ``spec`` mapping of a plan file, validated."""
+        spec = self.mapping(data, "spec")
+        spec_out = {
+            "ripple_db": self.positive(spec, "ripple_db", "spec.ripple_db"),
+            "rejection_db": self.positive(spec, "rejection_db", "spec.rejection_db"),
+        }
+        if "objective" in spec:
+            if spec["objective"] not in ("cpu", "hardware"):
+                raise ChannelizerError(f"{self.source}: spec.objective must be cpu or hardware, got {shown(spec['objective'])}")
+            spec_out["objective"] = spec["objective"]
+        bits = self.mapping(spec, "bits", "spec.bits")
+        spec_out["bits"] = {k: self.integer(bits, k, f"spec.bits.{k}", lo=1, hi=64) for k in ("input", "output")}
+        if "coefficient" in bits:
+            spec_out["bits"]["coefficient"] = self.integer(bits, "coefficient", "spec.bits.coefficient", lo=2, hi=64)
+        if spec.get("clock") is not None:
+            spec_out["clock"] = self.positive(spec, "clock", "spec.clock")
+        if spec.get("stopband_edge") is not None:
+            spec_out["stopband_edge"] = self.positive(spec, "stopband_edge", "spec.stopband_edge")
+        return spec_out
 
     def taps(self, d, where):
         t = d.get("taps")

@@ -18,6 +18,12 @@ __all__ = ["load_plan_file", "run_extraction"]
 
 def load_plan_file(path):
     """Read and validate a plan file; returns (plan, identity)."""
+    data = read_plan_bytes(path)
+    return Plan.from_yaml(data, source=path), plan_identity(data)
+
+
+def read_plan_bytes(path):
+    """The bytes of a plan file, refused when too large to be one."""
     try:
         size = os.path.getsize(path)
         if size > MAX_PLAN_BYTES:
@@ -26,7 +32,7 @@ def load_plan_file(path):
             data = fh.read()
     except OSError as exc:
         raise ChannelizerError(f"{path}: cannot read plan ({exc.strerror})") from None
-    return Plan.from_yaml(data, source=path), plan_identity(data)
+    return data
 
 
 def run_extraction(
@@ -74,6 +80,18 @@ def run_extraction(
     kw["trim_settling"] = trim_settling
     if audit_resolution is not None:
         kw["audit_resolution"] = audit_resolution
+    result = run_requests(capture, requests, out_dir, (output_format, bit_true, nonfinite, progress, plots, audit), kw)
+    result.warnings = warnings
+    return result
+
+
+def run_requests(capture, requests, out_dir, options, kw):
+    """Extract ``requests``, write the summary (all committed together) and the plots.
+
+    ``options`` is ``(output_format, bit_true, nonfinite, progress, plots, audit)``;
+    ``kw`` goes to :func:`extract_channels` (block size, engine, settling, audit resolution).
+    """
+    output_format, bit_true, nonfinite, progress, plots, audit = options
     files = FileSet()  # the recordings and the summary appear together, or not at all
     try:
         result = _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)
@@ -81,7 +99,6 @@ def run_extraction(
     except BaseException:
         files.abort()
         raise
-    result.warnings = warnings
     if plots:
         _plot(result, requests, capture, out_dir)
     return result

@@ -156,6 +156,7 @@ def extract_channels(
     fileset=None,
     trim_settling=False,
     audit_resolution=None,
+    engine=None,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -186,6 +187,10 @@ def extract_channels(
     audit_resolution : float, optional
         Bin spacing in Hz of the input spectrum the alias audit reads; by default
         chosen from the channels' bandwidths (:func:`channelizer.checks.alias_audit.audit_resolution`).
+    engine : object, optional
+        Float runner for all channels at once (``process(block)`` returning one
+        array per request, in order), e.g. a filter bank; by default the
+        requests' own chains, first stages shared where they can be.
 
     Returns
     -------
@@ -203,7 +208,7 @@ def extract_channels(
         raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
     _prepare_out_dir(out_dir)
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
-                audit_resolution=audit_resolution)
+                audit_resolution=audit_resolution, engine=engine)
     one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
     own_set = fileset is None
     files = FileSet() if own_set else fileset
@@ -222,13 +227,15 @@ def extract_channels(
 class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
-    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None):
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None, engine=None):
         self.capture, self.requests, self.names = capture, requests, names
         self.bit_true, self.block_size = bit_true, block_size
         fs = capture.sample_rate
         centre = capture.center_frequency or 0.0
         if bit_true:
             self.runners = [_integer_chain(r, capture) for r in requests]
+        elif engine is not None:
+            self.bank = engine
         else:
             # channels sharing a first stage share its matrix product
             from ..engines.float_chain import SharedFrontBank

@@ -119,6 +119,21 @@ def _reading(demo, annotations):
     return "<p>" + "</p><p>".join(lines) + "</p>"
 
 
+def _raster_section(demo):
+    """The whole raster through the filter bank: one line and the channel-power strip."""
+    if getattr(demo, "raster", None) is None:
+        return []
+    plan, plan_file, ex = demo.raster
+    return [
+        "<h2>Every raster channel through the filter bank</h2>",
+        f"<p>{plan.count} channels of {format_hz(plan.bandwidth)} every {format_hz(plan.spacing)} in one pass through a "
+        f"{plan.bins}-bin polyphase bank ({html.escape(os.path.basename(plan_file))}; oversampling {plan.oversampling}, "
+        f"prototype {len(plan.prototype)} taps), {ex.seconds:.2f} s. Predicted adjacent-channel rejection "
+        f"{plan.predicted['adjacent_rejection_db']:.1f} dB, alias rejection {plan.predicted['alias_rejection_db']:.1f} dB.</p>",
+        _img(demo.figures["raster"], "mean power of every raster channel, occupied ones labelled"),
+    ]
+
+
 def write_report(demo, *, annotations=()):
     """Write ``demo.report_path``."""
     ex = demo.extraction
@@ -184,6 +199,7 @@ def write_report(demo, *, annotations=()):
         png = os.path.join(os.path.dirname(ex.summary_path), f"{c.name}.png")
         if os.path.exists(png):
             parts.append(_img(png, f"{c.name} output spectrum"))
+    parts += _raster_section(demo)
     v = demo.verification
     if v is not None:
         parts.append("<h2>Verification of the voice chain</h2>")

@@ -1,0 +1,144 @@
+"""Speed of the filter bank against one channel and against one chain per channel.
+
+:func:`run_bank_benchmark` plans a bank for every channel of a raster, and the
+chain one channel would run on its own, then times on the same in-memory blocks
+of noise (complex64, so that no reading or writing is measured), in this process:
+
+(a) one channel: that chain (:class:`SharedFrontBank` of one, as ``extract`` runs it);
+(b) every raster channel through the bank (:class:`BankChannelizer`);
+(c) today's per-channel path: one chain per raster channel, channels sharing a
+    first stage sharing its product.  With more than ``PER_CHANNEL_MEASURED``
+    channels it is timed on that many and scaled by the count (its cost grows
+    linearly: every chain runs on its own after the shared product).
+
+Each figure is the best of ``REPEATS`` runs, reported as seconds per second of
+capture and as ratios between the three, which say more than the absolute
+figures on a shared machine.
+"""
+
+from dataclasses import asdict, dataclass
+import time
+
+import numpy as np
+
+from ..engines.filterbank import BankChannelizer
+from ..engines.float_chain import SharedFrontBank
+from ..errors import ChannelizerError
+from ..planning.bank import BankPlan
+from ..planning.bank_planner import BankSpec, per_channel_chain, plan_bank
+
+__all__ = ["BankBenchReport", "run_bank_benchmark", "format_bank_report"]
+
+REPEATS = 3
+BLOCK = 1 << 20
+PER_CHANNEL_MEASURED = 16
+#: Targets of the bank work: every 12.5 kHz channel of 2.4 Msps within this many times
+#: one channel's time; every 200 kHz channel of 61.44 Msps at least real time.
+TARGET_ALL_OVER_ONE = 3.0
+TARGET_REAL_TIME = 1.0
+
+
+@dataclass
+class BankBenchReport:
+    rate: float
+    spacing: float
+    bandwidth: float
+    channels: int
+    seconds_of_capture: float
+    bank_layout: str
+    chain_layout: str
+    one_channel_s: float  # per second of capture
+    bank_s: float
+    per_channel_s: float
+    per_channel_measured: int
+
+    def to_dict(self):
+        return asdict(self)
+
+
+def _best(make, x):
+    best = float("inf")
+    for _ in range(REPEATS):
+        runner = make()
+        t0 = time.perf_counter()
+        for i in range(0, x.size, BLOCK):
+            runner.process(x[i : i + BLOCK])
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
+    """Time a raster through the bank, one channel, and one chain per channel.
+
+    Parameters
+    ----------
+    spacing : float
+        Raster spacing in Hz.
+    rate : float
+        Capture rate in Hz.
+    bandwidth : float, optional
+        Channel width (default 0.8 of the spacing).
+    seconds : float
+        Length of the synthetic input.
+
+    Returns
+    -------
+    BankBenchReport
+    """
+    bandwidth = 0.8 * spacing if bandwidth is None else bandwidth
+    if not 0 < seconds <= 60:
+        raise ChannelizerError(f"seconds must be above 0 and at most 60, got {seconds!r}")
+    spec = BankSpec(input_rate=rate, bandwidth=bandwidth, spacing=spacing)
+    result = plan_bank(spec)
+    plan = result.plan
+    if not isinstance(plan, BankPlan):
+        raise ChannelizerError(f"for {result.channels} channels of {spacing:g} Hz the planner chose one chain each; nothing to compare")
+    chain = per_channel_chain(spec, plan.output_rate).plan
+    n = int(rate * seconds)
+    rng = np.random.default_rng(14)
+    x = (0.1 * (rng.standard_normal(n) + 1j * rng.standard_normal(n))).astype(np.complex64)
+    offsets, residuals = plan.offsets(), plan.residuals()
+    centre = min(range(plan.count), key=lambda i: abs(offsets[i]))
+    one = _best(lambda: SharedFrontBank([(chain.stages, offsets[centre])], fs=rate), x)
+    bank = _best(
+        lambda: BankChannelizer(
+            plan.prototype, plan.bins, plan.oversampling,
+            channels=list(zip(plan.channel_bins, residuals)), fine_stages=plan.stages, fs=rate,
+        ),
+        x,
+    )
+    measured = min(plan.count, PER_CHANNEL_MEASURED)
+    step = max(1, plan.count // measured)
+    some = [offsets[i] for i in range(0, plan.count, step)][:measured]
+    per = _best(lambda: SharedFrontBank([(chain.stages, f) for f in some], fs=rate), x) * plan.count / measured
+    tail = "".join(f" > {type(st).__name__.replace('Stage', '')}/{st.decimation}" for st in plan.stages)
+    return BankBenchReport(
+        rate=rate, spacing=spacing, bandwidth=bandwidth, channels=plan.count, seconds_of_capture=seconds,
+        bank_layout=f"{plan.bins} bins, O={plan.oversampling}, {len(plan.prototype)} taps{tail}",
+        chain_layout=result.alternatives[0].layout if result.alternatives else "",
+        one_channel_s=one / seconds, bank_s=bank / seconds, per_channel_s=per / seconds, per_channel_measured=measured,
+    )
+
+
+def _row(label, s_per_s):
+    return f"  {label:<34} {s_per_s:9.4f} s/s {1 / s_per_s:9.1f} x real time"
+
+
+def format_bank_report(r):
+    """Printed figures and the two targets."""
+    lines = [
+        f"filter bank: {r.channels} channels of {r.bandwidth:g} Hz every {r.spacing:g} Hz of a {r.rate / 1e6:g} Msps capture "
+        f"({r.seconds_of_capture:g} s of noise, best of {REPEATS}; seconds per second of capture)",
+        f"  bank          {r.bank_layout}",
+        f"  chain         {r.chain_layout}",
+        "",
+        _row("one channel (chain)", r.one_channel_s),
+        _row(f"all {r.channels} channels, bank", r.bank_s),
+        _row(f"all {r.channels} channels, one chain each", r.per_channel_s)
+        + (f"  (timed on {r.per_channel_measured}, scaled)" if r.per_channel_measured < r.channels else ""),
+        "",
+        f"  {'bank / one channel':<34} {r.bank_s / r.one_channel_s:9.2f} x   (target <= {TARGET_ALL_OVER_ONE:g} x for 12.5 kHz of 2.4 Msps)",
+        f"  {'one chain each / bank':<34} {r.per_channel_s / r.bank_s:9.2f} x",
+        f"  {'bank speed':<34} {1 / r.bank_s:9.2f} x real time (target >= {TARGET_REAL_TIME:g} x for 200 kHz of 61.44 Msps)",
+    ]
+    return "\n".join(lines)

@@ -1,0 +1,23 @@
+"""The bank benchmark runs the three paths on the same input and reports ratios (no timing asserted)."""
+
+import json
+
+from channelizer.bench.bank_speed import format_bank_report, run_bank_benchmark
+from channelizer.cli import main
+
+
+def test_bank_benchmark_reports_the_three_paths():
+    r = run_bank_benchmark(spacing=200e3, rate=4.8e6, seconds=0.02)
+    # centres i * 200k with |i * 200k| + 80k <= 2.4M: |i| <= 11, 23 channels (common practice)
+    assert r.channels == 23
+    assert r.one_channel_s > 0 and r.bank_s > 0 and r.per_channel_s > 0
+    text = format_bank_report(r)
+    assert "bank / one channel" in text and "x real time" in text
+
+
+def test_bench_command_with_spacing_writes_json(tmp_path, capsys):
+    out = tmp_path / "b.json"
+    assert main(["bench", "--spacing", "200k", "--rate", "4.8M", "--seconds", "0.02", "--json", str(out)]) == 0
+    doc = json.loads(out.read_text())
+    assert doc["channels"] == 23 and doc["spacing"] == 200e3
+    assert "one chain each" in capsys.readouterr().out
