@@ -371,6 +371,9 @@ def build_parser():
         prog="channelizer",
         description="Plan, apply, check and hand off multistage decimation chains for IQ captures.",
     )
+    from . import __version__
+
+    p.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
