@@ -371,9 +371,8 @@ def build_parser():
         prog="channelizer",
         description="Plan, apply, check and hand off multistage decimation chains for IQ captures.",
     )
-    from . import __version__
-
-    p.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
+    version = sys.modules[__package__].__version__  # the package is loaded before its cli
+    p.add_argument("--version", action="version", version=f"%(prog)s {version}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
