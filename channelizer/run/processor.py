@@ -21,14 +21,13 @@ from ..io.atomic import FileSet, write_text_atomic
 from ..errors import ChannelizerError
 from ..io.names import safe_output_name
 from ..dsp.spectrum import WelchAccumulator
+from ..dsp.spaced_welch import SpacedWelch
 from ..planning.stages import chain_rates
 from ..io.progress import ProgressBar
 
 __all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples"]
 
 DEFAULT_BLOCK = 1 << 20
-#: At most this many input samples go into the overview spectrum (spread over the file).
-OVERVIEW_SAMPLES = 8 << 20
 
 
 def plan_identity(data):
@@ -216,9 +215,9 @@ class _Pass:
 
             self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs)
         n_total = capture.num_samples
-        n_blocks = max(1, -(-n_total // block_size))
-        self.stride = max(1, -(-n_blocks * block_size // OVERVIEW_SAMPLES))
-        self.overview = WelchAccumulator(fs=fs, nperseg=4096, center_frequency=centre) if spectra else None
+        # a fixed budget of segments spread over the file: the audit's resolution at a
+        # fraction of the chain's cost however long the capture (see dsp/spaced_welch.py)
+        self.overview = SpacedWelch(fs=fs, nperseg=4096, total=n_total, center_frequency=centre) if spectra else None
         self.out_spectra = []
         for r in requests:
             n_out = int(n_total * r.plan.output_rate / fs)
@@ -234,15 +233,17 @@ class _Pass:
     def _outputs(self, i, block):
         """Every channel's output for one input block (complex64, full-scale units)."""
         if not self.bit_true:
-            if self.overview is not None and i % self.stride == 0:
+            if self.overview is not None:
                 self.overview.update(block)
             return self.bank.process(block)
         scale_in = 2.0 ** (self.capture.datatype.bits - 1)
         raw = block.astype(np.int64)
         if self.capture.datatype.kind == "u":
             raw = raw - int(scale_in)
-        if self.overview is not None and i % self.stride == 0:
+        if self.overview is not None and self.overview.needs(raw.shape[0]):
             self.overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
+        elif self.overview is not None:
+            self.overview.skip(raw.shape[0])
         outs = []
         for runner in self.runners:
             y = runner.process(raw)
