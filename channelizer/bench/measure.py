@@ -41,6 +41,7 @@ from ..io.sigmf_writer import SigmfWriter
 from ..planning.spec import ChainSpec
 from ..planning.stages import CicStage, ResamplerStage
 from .report import BenchReport, SoakReport
+from .command import time_extract_command
 from .memory import _environment, _measure_in_subprocess
 from .reference import _reference_pass, reference_filter
 
@@ -299,6 +300,11 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
             "power_difference_db": round(one_power_db - ref_power_db, 4),
         }
 
+        _say(progress, "timing the whole extract command (fresh interpreter, 2 channels)")
+        command = time_extract_command(base + ".sigmf-meta", plan_path, os.path.join(tmp, "command"), samples=n,
+                                       fs=float(SAMPLE_RATE), reference_one_s=min(runs["reference"]),
+                                       repeats=repeats)
+
         memory = {}
         jobs = {
             "reference": {"mode": "reference", "offsets": [one_offset]},
@@ -337,6 +343,8 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         "speedup_vs_reference": _target(ratios["speedup_vs_reference"], 5.0, ">="),
         "many_over_one_time": _target(ratios["many_over_one_time"], 5.0, "<="),
         "one_channel_realtime": _target(timings["one_channel"]["realtime_factor"], 1.0, ">="),
+        "command_realtime": _target(command["realtime_factor"], 2.0, ">="),
+        "command_speedup_vs_reference": _target(command["speedup_vs_reference"], 15.0, ">="),
     }
     return BenchReport(
         capture={"sample_rate": float(SAMPLE_RATE), "seconds": n / SAMPLE_RATE, "samples": n,
@@ -358,6 +366,7 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         targets=targets,
         checks=checks,
         environment=_environment(),
+        command=command,
     )
 
 
