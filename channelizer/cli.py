@@ -157,6 +157,8 @@ def _cmd_extract(args):
         progress=not args.quiet,
         nonfinite="zero" if args.zero_nonfinite else "error",
         block_size=args.block_size,
+        workers=args.workers,
+        scheduler=args.scheduler,
     )
     from .units import format_hz
 
@@ -201,6 +203,8 @@ def _register_extract(sub):
     e.add_argument("--zero-nonfinite", action="store_true", help="replace NaN/inf samples by zero instead of refusing")
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
     e.add_argument("--quiet", action="store_true", help="no progress bar")
+    e.add_argument("--workers", type=int, metavar="N", help="run on a local dask.distributed cluster of N processes (optional extra: pip install 'channelizer[cluster]')")
+    e.add_argument("--scheduler", metavar="ADDRESS", help="run on a running dask.distributed cluster, e.g. tcp://10.0.0.5:8786 (the capture must be readable by every worker)")
     e.set_defaults(func=_cmd_extract)
 
 

@@ -67,7 +67,7 @@ class SpacedWelch:
         self.center_frequency = _finite("center_frequency", center_frequency)
         if int(nperseg) < 2 or int(segments) < 1 or int(total) < 0:
             raise ChannelizerError(f"nperseg {nperseg!r}, segments {segments!r}, total {total!r}: need >= 2, >= 1, >= 0")
-        self.nperseg, self.total = int(nperseg), int(total)
+        self.nperseg, self.total, self.budget, self.overlap = int(nperseg), int(total), int(segments), overlap
         self.hop = max(int(round(self.nperseg * (1.0 - overlap))), 1, self.total // int(segments))
         self.count = 0 if self.total < self.nperseg else (self.total - self.nperseg) // self.hop + 1
         self.window = "hann"
@@ -76,6 +76,11 @@ class SpacedWelch:
         self.segments = 0
         self._pos = 0  # absolute index of the next sample fed by update()
         self._carry = np.zeros(0, dtype=np.complex64)  # samples from the start of a pending segment
+
+    def fresh(self):
+        """An empty accumulator on the same grid (for a part of the stream)."""
+        return SpacedWelch(fs=self.fs, nperseg=self.nperseg, total=self.total, segments=self.budget,
+                           overlap=self.overlap, center_frequency=self.center_frequency)
 
     def starts(self, first, stop):
         """Absolute starts of the grid's segments that begin in ``[first, stop)``."""

@@ -42,14 +42,22 @@ def run_extraction(
     nonfinite="error",
     block_size=None,
     audit=True,
+    workers=None,
+    scheduler=None,
 ):
     """Extract ``entries`` (ChannelEntry) from an open capture into ``out_dir``.
 
     A channel's own plan path (from a channel list) is read relative to
     ``base_dir``; otherwise ``plan_path`` serves.  Returns the ExtractResult, with
     ``summary.json`` written and, unless ``plots`` is false, ``overview.png`` and
-    one ``NAME.png`` per channel.
+    one ``NAME.png`` per channel.  ``workers`` (a local cluster of that many
+    processes) or ``scheduler`` (a running cluster's address) runs the pass on
+    dask.distributed (:mod:`channelizer.run.distributed`), with the same outputs.
     """
+    if workers is not None or scheduler is not None:
+        from .distributed import check_cluster_options
+
+        check_cluster_options(workers, scheduler)
     plans = {}
     requests = []
     for e in entries:
@@ -61,6 +69,10 @@ def run_extraction(
         plan, ident = plans[path]
         requests.append(ChannelRequest(e.name, resolve_offset(e, capture.center_frequency), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
+    if workers is not None or scheduler is not None:
+        from .distributed import distributed_runner
+
+        kw["runner"] = distributed_runner(workers=workers, scheduler=scheduler)
     files = FileSet()  # the recordings and the summary appear together, or not at all
     try:
         result = _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)

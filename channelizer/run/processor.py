@@ -139,11 +139,12 @@ def extract_channels(
     *,
     output_format="cf32_le",
     bit_true=False,
-    block_size=DEFAULT_BLOCK,
+    block_size=None,
     nonfinite="error",
     progress=False,
     spectra=True,
     fileset=None,
+    runner=None,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -156,8 +157,10 @@ def extract_channels(
     output_format : {'cf32_le', 'ci16_le'}
     bit_true : bool
         Run the integer chain (NCO, pruned CIC, quantised FIRs) on the raw integers.
-    block_size : int
-        Input samples read at a time; the output does not depend on it.
+    block_size : int, optional
+        Input samples read at a time; the output does not depend on it (beyond
+        float rounding).  By default about ``DEFAULT_BLOCK``, a multiple of every
+        chain's period, so that a distributed run can match this pass bit for bit.
     nonfinite : {'error', 'zero'}
         What to do with NaN or infinite samples in a float capture.
     progress : bool
@@ -168,6 +171,10 @@ def extract_channels(
         Leave the recordings uncommitted in this set (the caller adds the summary
         and commits, so that all outputs of a run appear together); by default
         they are committed here once every channel is complete.
+    runner : callable, optional
+        ``runner(pass_, out_dir, files, output_format=..., nonfinite=...,
+        progress=...)`` does the reading and writing in place of this process
+        (the distributed runner of :mod:`channelizer.run.distributed`).
 
     Returns
     -------
@@ -184,12 +191,17 @@ def extract_channels(
     if bit_true and not capture.datatype.is_integer:
         raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
     _prepare_out_dir(out_dir)
+    if block_size is None:
+        from .chunks import aligned_block_size
+
+        block_size = aligned_block_size([r.plan.stages for r in requests], DEFAULT_BLOCK)
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra)
     own_set = fileset is None
     files = FileSet() if own_set else fileset
     t0 = time.perf_counter()
     try:
-        one.run(out_dir, files, output_format=output_format, nonfinite=nonfinite, progress=progress)
+        run = one.run if runner is None else (lambda *a, **k: runner(one, *a, **k))
+        run(out_dir, files, output_format=output_format, nonfinite=nonfinite, progress=progress)
         if own_set:
             files.commit()  # every recording appears together, or none does
     except BaseException:
@@ -202,18 +214,20 @@ def extract_channels(
 class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
-    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra):
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, start_index=0):
         self.capture, self.requests, self.names = capture, requests, names
         self.bit_true, self.block_size = bit_true, block_size
         fs = capture.sample_rate
         centre = capture.center_frequency or 0.0
         if bit_true:
             self.runners = [_integer_chain(r, capture) for r in requests]
+            for runner in self.runners:
+                runner.seek(start_index)  # first sample fed is the capture's sample start_index
         else:
             # channels sharing a first stage share its matrix product
             from ..engines.float_chain import SharedFrontBank
 
-            self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs)
+            self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs, start_index=start_index)
         n_total = capture.num_samples
         # a fixed budget of segments spread over the file: the audit's resolution at a
         # fraction of the chain's cost however long the capture (see dsp/spaced_welch.py)
@@ -250,34 +264,48 @@ class _Pass:
             outs.append((y[:, 0] + 1j * y[:, 1]).astype(np.complex64) * np.float32(runner.output_scale))
         return outs
 
-    def run(self, out_dir, files, *, output_format, nonfinite, progress):
-        """Stream the capture into one writer per channel (left uncommitted in ``files``)."""
+    def open_writers(self, stack, out_dir, files, output_format):
+        """One SigMF writer per channel, entered on ``stack``, left uncommitted in ``files``."""
         from ..io.sigmf_writer import SigmfWriter
 
         cap = self.capture
         centre = cap.center_frequency
+        for r, name in zip(self.requests, self.names):
+            meta_global = {
+                "core:description": f"channel {name} extracted by channelizer",
+                "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
+                "channelizer:channel": name,
+                "channelizer:plan_sha256": r.plan_id,
+                "channelizer:plan_source": os.path.basename(r.plan_source) if r.plan_source else "",
+                "channelizer:source_capture": os.path.basename(cap.path),
+                "channelizer:offset_hz": float(r.offset),
+                "channelizer:bit_true": bool(self.bit_true),
+            }
+            w = SigmfWriter(
+                os.path.join(out_dir, name),
+                datatype=output_format,
+                fs=r.plan.output_rate,
+                center_frequency=None if centre is None else centre + r.offset,
+                global_extra=meta_global,
+                fileset=files,
+            )
+            self.writers.append(stack.enter_context(w))
+
+    def take(self, k, y):
+        """Write channel ``k``'s next output samples and add them to its figures."""
+        if y.size:
+            self.writers[k].write(y)
+            self.power[k] += float(np.vdot(y, y).real)
+            self.count[k] += y.size
+            if self.out_spectra[k] is not None:
+                self.out_spectra[k].update(y)
+
+    def run(self, out_dir, files, *, output_format, nonfinite, progress):
+        """Stream the capture into one writer per channel (left uncommitted in ``files``)."""
+        cap = self.capture
         bar = ProgressBar(cap.num_samples, enabled=None if progress else False, label="extract")
         with contextlib.ExitStack() as stack:
-            for r, name in zip(self.requests, self.names):
-                meta_global = {
-                    "core:description": f"channel {name} extracted by channelizer",
-                    "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
-                    "channelizer:channel": name,
-                    "channelizer:plan_sha256": r.plan_id,
-                    "channelizer:plan_source": os.path.basename(r.plan_source) if r.plan_source else "",
-                    "channelizer:source_capture": os.path.basename(cap.path),
-                    "channelizer:offset_hz": float(r.offset),
-                    "channelizer:bit_true": bool(self.bit_true),
-                }
-                w = SigmfWriter(
-                    os.path.join(out_dir, name),
-                    datatype=output_format,
-                    fs=r.plan.output_rate,
-                    center_frequency=None if centre is None else centre + r.offset,
-                    global_extra=meta_global,
-                    fileset=files,
-                )
-                self.writers.append(stack.enter_context(w))
+            self.open_writers(stack, out_dir, files, output_format)
             if self.bit_true:
                 blocks = cap.raw_blocks(self.block_size)
             else:
@@ -285,12 +313,7 @@ class _Pass:
             done = 0
             for i, block in enumerate(blocks):
                 for k, y in enumerate(self._outputs(i, block)):
-                    if y.size:
-                        self.writers[k].write(y)
-                        self.power[k] += float(np.vdot(y, y).real)
-                        self.count[k] += y.size
-                        if self.out_spectra[k] is not None:
-                            self.out_spectra[k].update(y)
+                    self.take(k, y)
                 done += block.shape[0]
                 bar.update(done)
             bar.close()
