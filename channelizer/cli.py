@@ -324,7 +324,7 @@ def _cmd_bench(args):
         for row in planner["specs"]:
             print(f"  {row['seconds']:7.3f} s  {row['layout']:<28} {row['spec']}")
         print(f"  worst {planner['worst_s']:.3f} s (target < {planner['target_s']:g} s): {'met' if planner['met'] else 'MISSED'}\n")
-        report = run_benchmark(seconds=args.seconds, channels=args.channels, progress=not args.quiet)
+        report = run_benchmark(seconds=args.seconds, channels=args.channels, progress=not args.quiet, workers=args.workers)
         print(format_report(report))
         doc = report.to_dict()
         doc["planner"] = planner
@@ -340,6 +340,7 @@ def _register_bench(sub):
     b.add_argument("--channels", type=int, default=8, help="channels of the many-channel run (default 8)")
     b.add_argument("--soak", type=_positive_float, metavar="GB", help="instead: extract 4 channels from a capture of GB gigabytes and report peak memory")
     b.add_argument("--json", metavar="FILE", help="write the figures as JSON")
+    b.add_argument("--workers", type=int, metavar="N", help="also time the extraction on a local dask cluster of N processes against one process")
     b.add_argument("--quiet", action="store_true", help="no progress lines")
     b.set_defaults(func=_cmd_bench)
 

@@ -251,3 +251,13 @@ def test_a_chunk_that_keeps_failing_fails_the_run_whole(scene, tmp_path, client)
         extract_channels(open_capture(cap_path), _requests(plans), str(out), block_size=BLOCK, spectra=False,
                          runner=runner)
     assert [f for f in os.listdir(out) if not f.startswith(".")] == []
+
+
+def test_bench_workers_figures(scene, tmp_path):
+    from channelizer.bench.scaling import time_workers
+
+    cap_path, plans, _ = scene
+    got = time_workers(cap_path, _requests(plans), str(tmp_path), workers=2, repeats=1)
+    assert got["workers"] == 2 and got["identical"]
+    assert got["speedup"] == pytest.approx(min(got["one_process_runs_s"]) / min(got["workers_runs_s"]), rel=1e-3)
+    assert got["chunks"] >= 1 and 0 < got["overlap_cost"] <= 1

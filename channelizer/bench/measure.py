@@ -196,7 +196,7 @@ def _ratio(a, b):
     return a / b if b else None
 
 
-def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repeats=REPEATS):
+def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repeats=REPEATS, workers=None):
     """Time the extract path against a single-stage scipy resampler on a synthetic capture.
 
     Parameters
@@ -212,6 +212,10 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         Say on stderr what is being done.
     repeats : int
         Timed runs per measurement; the best is kept.
+    workers : int, optional
+        Also time the two-channel extraction on a local dask.distributed cluster
+        of this many processes against one process (see
+        :mod:`channelizer.bench.scaling`).
 
     Returns
     -------
@@ -304,6 +308,14 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         command = time_extract_command(base + ".sigmf-meta", plan_path, os.path.join(tmp, "command"), samples=n,
                                        fs=float(SAMPLE_RATE), reference_one_s=min(runs["reference"]),
                                        repeats=repeats)
+        scaling = {}
+        if workers is not None:
+            from .command import COMMAND_CHANNELS
+            from .scaling import time_workers
+
+            _say(progress, f"timing one process against {workers} dask workers")
+            scaling = time_workers(base + ".sigmf-meta", requests(COMMAND_CHANNELS), tmp, workers=workers,
+                                   repeats=repeats)
 
         memory = {}
         jobs = {
@@ -346,6 +358,8 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         "command_realtime": _target(command["realtime_factor"], 2.0, ">="),
         "command_speedup_vs_reference": _target(command["speedup_vs_reference"], 15.0, ">="),
     }
+    if scaling:
+        targets["workers_speedup"] = _target(scaling["speedup"], 1.6, ">=")
     return BenchReport(
         capture={"sample_rate": float(SAMPLE_RATE), "seconds": n / SAMPLE_RATE, "samples": n,
                  "datatype": "ci16_le", "block_size": BLOCK, "offsets_hz": offsets},
@@ -367,6 +381,7 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         checks=checks,
         environment=_environment(),
         command=command,
+        workers=scaling,
     )
 
 
