@@ -115,9 +115,9 @@ class ChunkLayout:
 
     @property
     def overlap_cost(self):
-        """Extra input processed per chunk input: ``preroll / chunk length``."""
-        first = self.chunks[0]
-        return self.preroll / max(1, first[1] - first[0])
+        """Extra input processed over the capture's: every chunk but the first reads a pre-roll
+        (about ``preroll / chunk length``)."""
+        return self.preroll * (len(self.chunks) - 1) / max(1, self.chunks[-1][1])
 
 
 def chunk_layout(chains, total, *, chunk_samples, block_size=None):
