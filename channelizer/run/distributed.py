@@ -94,7 +94,7 @@ def cluster_client(*, workers=None, scheduler=None):
 
     with dask.config.set(_LOCAL_CONFIG):
         cluster = distributed.LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                           dashboard_address=None, silence_logs=logging.ERROR)
+                                           dashboard_address=":0", silence_logs=logging.ERROR)
     try:
         client = distributed.Client(cluster)
         try:
