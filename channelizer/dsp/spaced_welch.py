@@ -24,7 +24,7 @@ References
 import numpy as np
 
 from ..errors import ChannelizerError
-from .spectrum import Psd, _finite, _make_window, _positive, _welch_dof
+from .spectrum import _finite, _make_window, _positive, _psd_from_sum
 
 __all__ = ["SpacedWelch", "DEFAULT_SEGMENTS"]
 
@@ -130,24 +130,4 @@ class SpacedWelch:
 
     def result(self):
         """The PSD (:class:`~channelizer.dsp.spectrum.Psd`) of the segments seen."""
-        k = self.segments
-        if k == 0:
-            raise ChannelizerError(f"spectrum needs at least nperseg = {self.nperseg} samples, got {self.total}")
-        w = self._win
-        s2 = float(np.dot(w, w))
-        psd = np.fft.fftshift(self._sum / (k * self.fs * s2))
-        freqs = self.center_frequency + np.fft.fftshift(np.fft.fftfreq(self.nperseg, 1.0 / self.fs))
-        psd.setflags(write=False)
-        freqs.setflags(write=False)
-        return Psd(
-            freqs=freqs,
-            psd=psd,
-            fs=self.fs,
-            center_frequency=self.center_frequency,
-            nperseg=self.nperseg,
-            noverlap=max(0, self.nperseg - self.hop),
-            window=self.window,
-            enbw_hz=self.fs * s2 / float(np.sum(w)) ** 2,
-            segments=k,
-            dof=_welch_dof(w, self.hop, k),
-        )
+        return _psd_from_sum(self, self._sum, self.segments, self.hop, self.total)

@@ -354,29 +354,35 @@ class WelchAccumulator:
         ChannelizerError
             When fewer than ``nperseg`` samples have been fed.
         """
-        k = self._seg.segments
-        if k == 0:
-            raise ChannelizerError(
-                f"spectrum needs at least nperseg = {self.nperseg} samples, got {self._seg.samples}"
-            )
-        w = self._win
-        s2 = float(np.dot(w, w))
-        psd = np.fft.fftshift(self._sum / (k * self.fs * s2))
-        freqs = self.center_frequency + np.fft.fftshift(np.fft.fftfreq(self.nperseg, 1.0 / self.fs))
-        psd.setflags(write=False)
-        freqs.setflags(write=False)
-        return Psd(
-            freqs=freqs,
-            psd=psd,
-            fs=self.fs,
-            center_frequency=self.center_frequency,
-            nperseg=self.nperseg,
-            noverlap=self.noverlap,
-            window=self.window,
-            enbw_hz=self.fs * s2 / float(np.sum(w)) ** 2,
-            segments=k,
-            dof=_welch_dof(w, self.nperseg - self.noverlap, k),
-        )
+        return _psd_from_sum(self, self._sum, self._seg.segments, self.nperseg - self.noverlap, self._seg.samples)
+
+
+def _psd_from_sum(acc, total, k, step, samples):
+    """The :class:`Psd` of ``k`` periodograms summing to ``total``, segments ``step`` apart.
+
+    ``acc`` supplies ``fs``, ``center_frequency``, ``nperseg``, ``window`` and the
+    window's samples ``_win``; ``samples`` is only named in the error for ``k == 0``.
+    """
+    if k == 0:
+        raise ChannelizerError(f"spectrum needs at least nperseg = {acc.nperseg} samples, got {samples}")
+    w = acc._win
+    s2 = float(np.dot(w, w))
+    psd = np.fft.fftshift(total / (k * acc.fs * s2))
+    freqs = acc.center_frequency + np.fft.fftshift(np.fft.fftfreq(acc.nperseg, 1.0 / acc.fs))
+    psd.setflags(write=False)
+    freqs.setflags(write=False)
+    return Psd(
+        freqs=freqs,
+        psd=psd,
+        fs=acc.fs,
+        center_frequency=acc.center_frequency,
+        nperseg=acc.nperseg,
+        noverlap=max(0, acc.nperseg - step),
+        window=acc.window,
+        enbw_hz=acc.fs * s2 / float(np.sum(w)) ** 2,
+        segments=k,
+        dof=_welch_dof(w, step, k),
+    )
 
 
 def tone_power_dbfs(psd, frequency, *, span_bins=None, noise_floor=None):
