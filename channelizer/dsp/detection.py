@@ -12,6 +12,7 @@ import re
 import numpy as np
 
 from ..errors import ChannelizerError
+from .chi2 import chi2_ppf
 from .spectrum import _db, _finite
 
 #: Noise-only false-alarm probability of the clip level used by the noise-floor trimming.
@@ -25,11 +26,7 @@ __all__ = ["DetectedSignal", "estimate_noise_floor", "detect_signals", "channel_
 
 def _median_to_mean(dof, quantile=0.5):
     """``q``-quantile over mean of a chi-square variable with ``dof`` degrees of freedom."""
-    # chi2.ppf(q, nu) = 2 P^-1(nu / 2, q), P the regularised lower incomplete gamma function
-    # (Abramowitz & Stegun 26.4.19, from memory); scipy.special imports in a third of scipy.stats' time
-    from scipy.special import gammaincinv
-
-    return 2.0 * float(gammaincinv(dof / 2.0, quantile)) / dof
+    return chi2_ppf(quantile, dof) / dof
 
 
 def _dilate(mask, half):
