@@ -67,3 +67,18 @@ def test_any_block_split_and_any_partition_give_the_same_sums():
     for other in (split, parts):
         assert other.segments == whole.segments
         np.testing.assert_allclose(other.result().psd, whole.result().psd, rtol=1e-5)
+
+
+def test_overlapped_segments_survive_any_block_split():
+    # short stream: hop = nperseg / 2, so two segments can be pending at a block's end
+    n, nper = 20_000, 256
+    x = _noise_and_tone(n, seed=11)
+    whole = SpacedWelch(fs=FS, nperseg=nper, total=n, segments=10_000)
+    whole.update(x)
+    rng = np.random.default_rng(2)
+    cuts = np.unique(np.concatenate(([0, n], rng.integers(0, n, 40), [100, 101, 102, 300])))
+    split = SpacedWelch(fs=FS, nperseg=nper, total=n, segments=10_000)
+    for a, b in zip(cuts[:-1], cuts[1:]):
+        split.update(x[a:b])
+    assert split.segments == whole.segments == (n - nper) // (nper // 2) + 1
+    np.testing.assert_allclose(split.result().psd, whole.result().psd, rtol=1e-5)

@@ -99,16 +99,26 @@ class SpacedWelch:
     def update(self, block):
         """Feed the next contiguous block of the stream (starting where the last ended)."""
         x = np.asarray(block)
-        first = self._pos - self._carry.size
-        buf = np.concatenate((self._carry, x)) if self._carry.size else x
-        self._pos += x.size
         n = self.nperseg
-        done = [s - first for s in self.starts(first, self._pos) if s + n <= self._pos]
-        if done:
-            idx = np.asarray(done)[:, None] + np.arange(n)
-            self.add_segments(buf[idx])
-        pending = [s for s in self.starts(first, self._pos) if s + n > self._pos]
-        self._carry = np.array(buf[pending[0] - first :], dtype=np.complex64) if pending else self._carry[:0]
+        first, end = self._pos, self._pos + x.size
+        self._pos = end
+        c0 = first - self._carry.size  # absolute index of the held samples' start
+        old = list(self.starts(c0, first)) if self._carry.size else []
+        new = list(self.starts(first, end))
+        ready_old = [s for s in old if s + n <= end]
+        if ready_old:  # segments begun in the last block: held samples and this block's head only
+            head = np.concatenate((self._carry, x[:n]))
+            self.add_segments(head[np.asarray(ready_old)[:, None] - c0 + np.arange(n)])
+        inside = [s - first for s in new if s + n <= end]
+        if inside:
+            self.add_segments(x[np.asarray(inside)[:, None] + np.arange(n)])
+        pending = [s for s in old + new if s + n > end]
+        if not pending:
+            self._carry = self._carry[:0]
+        elif pending[0] >= first:
+            self._carry = np.array(x[pending[0] - first :], dtype=np.complex64)
+        else:  # still short of a whole segment: this block was shorter than one
+            self._carry = np.concatenate((self._carry[pending[0] - c0 :], x)).astype(np.complex64)
 
     def needs(self, n):
         """Whether the next ``n`` samples hold any part of a segment (else :meth:`skip` them)."""
