@@ -82,7 +82,7 @@ def cluster_client(*, workers=None, scheduler=None):
     distributed = _distributed()
     if scheduler is not None:
         try:
-            client = distributed.Client(scheduler, timeout="20s")
+            client = distributed.Client(scheduler, timeout="10s")
         except (OSError, TimeoutError) as exc:
             raise ChannelizerError(f"scheduler {scheduler}: cannot connect ({exc})") from None
         try:
