@@ -5,7 +5,7 @@ one ``error:`` line on stderr and exit status 2.
 """
 
 import argparse
-import contextlib
+import math
 import os
 import sys
 
@@ -17,6 +17,9 @@ from .errors import ChannelizerError
 from .units import parse_frequency
 
 __all__ = ["main", "build_parser"]
+
+#: Exit status of a check whose measurement cannot decide (0 meets, 1 misses, 2 bad input).
+EXIT_INCONCLUSIVE = 3
 
 
 def _rate(name):
@@ -63,6 +66,11 @@ def _cmd_plan(args):
     from .planning.spec import ChainSpec
     from .views.table import format_alternatives, format_plan
 
+    if args.clock is not None and args.objective != "hardware":
+        raise ChannelizerError(
+            "--clock is the hardware clock that multipliers are shared at; it only applies with --objective hardware "
+            "(the cpu objective counts multiplies per second and has no clock)"
+        )
     spec = ChainSpec(
         input_rate=args.rate,
         bandwidth=args.bandwidth,
@@ -157,6 +165,8 @@ def _cmd_extract(args):
         progress=not args.quiet,
         nonfinite="zero" if args.zero_nonfinite else "error",
         block_size=args.block_size,
+        trim_settling=args.trim_settling,
+        audit_resolution=args.audit_resolution,
         workers=args.workers,
         scheduler=args.scheduler,
     )
@@ -172,22 +182,47 @@ def _cmd_extract(args):
     )
     print(f"{'channel':<16} {'centre':>16} {'rate':>12} {'samples':>10} {'power':>11} {'delay':>9}  folding signals")
     for ch in result.channels:
-        centre = format_hz(ch.center_frequency) if ch.center_frequency is not None else f"{ch.offset:+g} Hz"
+        centre = format_hz(ch.center_frequency, digits=10) if ch.center_frequency is not None else format_hz(ch.offset, signed=True)
         flagged = sum(1 for a in ch.alias_audit if a["above_noise"])
+        power = f"{ch.mean_power_dbfs:>7.2f}" if math.isfinite(ch.mean_power_dbfs) else f"{'n/a':>7}"
         print(
             f"{ch.name:<16} {centre:>16} {format_hz(ch.output_rate, 'sps'):>12} {ch.samples:>10} "
-            f"{ch.mean_power_dbfs:>7.2f} dBFS {ch.group_delay_output_samples:>9.2f}  "
+            f"{power} dBFS {ch.group_delay_output_samples:>9.2f}  "
             f"{len(ch.alias_audit)} ({flagged} above the output noise)"
         )
+    print("power: mean after each chain has settled (from output sample power_from_sample in the summary)")
     print(f"summary written to {result.summary_path}")
-    return 0
+    for ch in result.channels:
+        if ch.clipped:
+            # the largest component that fits a 16-bit word is 32767/32768 of full scale
+            fit = 20 * math.log10((1 - 2.0**-15) / ch.peak)
+            print(f"warning: channel {ch.name}: {ch.clipped} of {ch.samples} samples clipped at the {args.output_format} "
+                  f"rails; a gain of {fit:.1f} dB before writing would fit them", file=sys.stderr)
+    return _extract_warnings(result, fail_on_alias=args.fail_on_alias)
+
+
+def _extract_warnings(result, *, fail_on_alias):
+    """Warnings on stderr; exit status 1 when a signal folds above the noise and that is to fail."""
+    from .units import format_hz
+
+    for line in result.warnings:
+        print(f"warning: {line}", file=sys.stderr)
+    folded = [(ch.name, a) for ch in result.channels for a in ch.alias_audit if a["above_noise"]]
+    for name, a in folded:
+        print(
+            f"warning: channel {name}: the signal at {format_hz(a['signal_center_hz'])} folds onto it at "
+            f"{a['output_level_dbfs_per_hz']:.1f} dBFS/Hz, {a['output_level_dbfs_per_hz'] - a['output_noise_floor_dbfs_per_hz']:.1f} dB "
+            "above the output noise floor",
+            file=sys.stderr,
+        )
+    return 1 if folded and fail_on_alias else 0
 
 
 def _add_capture_options(p):
     p.add_argument("capture", metavar="CAPTURE", help="SigMF recording (.sigmf-meta/.sigmf-data), two-channel WAV, or raw IQ")
     p.add_argument("--input-format", metavar="DTYPE", help="datatype of a raw file, e.g. ci16_le, cf32_le, cu8")
-    p.add_argument("--rate", type=_rate("rate"), help="sample rate of a raw file")
-    p.add_argument("--center", type=_rate("center"), help="centre frequency of a raw file (optional)")
+    p.add_argument("--rate", type=_rate("rate"), help="sample rate of a raw file in samples/s (e.g. 2.4M); must agree with the file's own rate if it has one")
+    p.add_argument("--center", type=_rate("center"), help="centre frequency of a raw file in Hz (e.g. 161M; optional: without it, frequencies are offsets)")
 
 
 def _register_extract(sub):
@@ -197,12 +232,15 @@ def _register_extract(sub):
     e.add_argument("--channel", action="append", metavar="NAME=FREQ", help="channel to extract; FREQ absolute when the capture states its centre, +/- for an offset (repeatable)")
     e.add_argument("--channels", metavar="FILE", help="YAML channel list: name, frequency, optional plan")
     e.add_argument("--out", required=True, metavar="DIR", help="output folder")
-    e.add_argument("--output-format", choices=["cf32_le", "ci16_le"], default="cf32_le")
+    e.add_argument("--output-format", choices=["cf32_le", "ci16_le"], default="cf32_le", help="SigMF datatype of the channel recordings: cf32_le (32-bit float, default) or ci16_le (16-bit integers, full scale 1.0 = 32768, saturating)")
     e.add_argument("--bit-true", action="store_true", help="integer arithmetic as hardware would do it")
     e.add_argument("--no-plots", action="store_true", help="skip overview.png and the per-channel plots")
+    e.add_argument("--fail-on-alias", action="store_true", help="exit with status 1 when a signal folds onto a channel above its output noise floor (a warning either way)")
+    e.add_argument("--trim-settling", action="store_true", help="leave out each channel's start-up samples (the chain's settling length) instead of marking them with an annotation")
     e.add_argument("--zero-nonfinite", action="store_true", help="replace NaN/inf samples by zero instead of refusing")
+    e.add_argument("--audit-resolution", type=_rate("audit resolution"), default=None, metavar="HZ", help="bin spacing of the input spectrum the alias audit reads (default: from the narrowest channel, bandwidth / 32)")
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
-    e.add_argument("--quiet", action="store_true", help="no progress bar")
+    e.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
     e.add_argument("--workers", type=int, metavar="N", help="run on a local dask.distributed cluster of N processes (optional extra: pip install 'channelizer[cluster]')")
     e.add_argument("--scheduler", metavar="ADDRESS", help="run on a running dask.distributed cluster, e.g. tcp://10.0.0.5:8786 (the capture must be readable by every worker)")
     e.set_defaults(func=_cmd_extract)
@@ -223,9 +261,19 @@ def _cmd_survey(args):
     if args.plot:
         plot_survey(result, args.plot)
         print(f"\nsurvey plot written to {args.plot}")
+    rows = result.channel_list()
+    if args.plans_out:
+        from .run.survey_plans import plan_signals
+
+        list_dir = os.path.dirname(os.path.abspath(args.channels_out)) if args.channels_out else None
+        rows, problems = plan_signals(rows, args.plans_out, fs=capture.sample_rate, list_dir=list_dir)
+        for line in problems:
+            print(f"warning: {line}", file=sys.stderr)
+        print(f"{sum('plan' in r for r in rows)} plan(s) written to {args.plans_out}")
     if args.channels_out:
-        write_text_atomic(args.channels_out, dump_channel_list(result.channel_list()))
-        print(f"channel list written to {args.channels_out} (edit names, add plan: to each)")
+        write_text_atomic(args.channels_out, dump_channel_list(rows))
+        hint = "edit names" if args.plans_out else "edit names, add plan: to each"
+        print(f"channel list written to {args.channels_out} ({hint})")
     return 0
 
 
@@ -233,9 +281,10 @@ def _register_survey(sub):
     v = sub.add_parser("survey", help="spectrum, spectrogram and occupied signals of a capture", description="Survey a capture: Welch PSD, spectrogram, noise floor and the occupied signals.")
     _add_capture_options(v)
     v.add_argument("--plot", metavar="FILE.png", help="write the PSD and spectrogram figure")
-    v.add_argument("--resolution", type=_rate("resolution"), help="frequency resolution (default: rate / 4096)")
-    v.add_argument("--threshold-db", type=_positive_float, default=10.0, help="detection threshold above the noise floor (default 10)")
+    v.add_argument("--resolution", type=_rate("resolution"), help="frequency resolution in Hz (SI suffixes allowed, e.g. 500 or 1k): the Welch segment is the next power of two at or above rate / resolution, so bins come out at or below it (default: rate / 4096)")
+    v.add_argument("--threshold-db", type=_positive_float, default=10.0, help="detection threshold in dB above the local noise floor, for the strongest bins and for the signal's power over the noise in its occupied band (default 10)")
     v.add_argument("--channels-out", metavar="FILE", help="write the detected signals as a channel list for extract --channels")
+    v.add_argument("--plans-out", metavar="DIR", help="plan a chain for each detected signal from its occupied bandwidth and write DIR/NAME.yaml (named in the --channels-out list)")
     v.add_argument("--quiet", action="store_true", help="no progress bar")
     v.set_defaults(func=_cmd_survey)
 
@@ -244,6 +293,11 @@ def _cmd_demo(args):
     from .demo.job import run_demo, write_demo_capture
 
     if args.write_capture:
+        folder = os.path.dirname(os.path.abspath(args.write_capture))
+        try:
+            os.makedirs(folder, exist_ok=True)
+        except OSError as exc:
+            raise ChannelizerError(f"{folder}: cannot create the folder ({exc.strerror})") from None
         write_demo_capture(args.write_capture)
         print(f"demo capture written to {args.write_capture}.sigmf-meta / .sigmf-data")
         return 0
@@ -260,7 +314,7 @@ def _cmd_demo(args):
     if result.verification is not None:
         v = result.verification
         print(f"verify    measured rejection {v.measured_rejection_db:.1f} dB, ripple {v.measured_ripple_db:.4f} dB: "
-              f"{'meets' if v.meets_spec else 'MISSES'} the spec")
+              f"{v.verdict_text()}")
     print(f"\nreport: {os.path.abspath(result.report_path)}  ({result.seconds:.1f} s)")
     return 0
 
@@ -291,14 +345,14 @@ def _cmd_verify(args):
     if args.json:
         write_text_atomic(args.json, v.to_json())
         print(f"measurements written to {args.json}")
-    return 0 if v.meets_spec else 1
+    return {"meets": 0, "does not meet": 1}.get(v.verdict, EXIT_INCONCLUSIVE)
 
 
 def _register_verify(sub):
-    v = sub.add_parser("verify", help="measure a plan with tone sweeps through the real processor", description="Drive the extract processor with test tones in the passband and in every band that folds onto it; compare measured with predicted. Exit 0 when the measured figures meet the plan's spec, 1 when not, 2 for bad input.")
+    v = sub.add_parser("verify", help="measure a plan with tone sweeps through the real processor", description="Drive the extract processor with test tones in the passband and in every band that folds onto it; compare measured with predicted. Exit 0 when the measured figures meet the plan's spec, 1 when not, 2 for bad input, 3 when the measurement's own floor cannot decide.")
     v.add_argument("plan", metavar="PLAN.yaml")
     v.add_argument("--bit-true", action="store_true", help="run the integer chain")
-    v.add_argument("--tones", type=int, default=None, help="number of alias-band tones (default: the library's choice)")
+    v.add_argument("--tones", type=int, default=None, help="number of test tones spread over the bands that fold onto the passband (default 200; the passband always gets 17)")
     v.add_argument("--plot", metavar="FILE.png", help="measured points over the predicted response")
     v.add_argument("--json", metavar="FILE", help="write every measurement as JSON")
     v.set_defaults(func=_cmd_verify)
@@ -336,7 +390,7 @@ def _cmd_bench(args):
 
 def _register_bench(sub):
     b = sub.add_parser("bench", help="speed and memory figures as ratios against a reference run", description="Measure the planner, and extraction speed and memory against a scipy.signal.resample_poly reference in the same process; --soak runs the large-file memory check.")
-    b.add_argument("--seconds", type=_positive_float, default=2.0, help="length of the synthetic 61.44 Msps capture (default 2)")
+    b.add_argument("--seconds", type=_positive_float, default=2.0, help="length of the synthetic 61.44 Msps capture in seconds (default 2)")
     b.add_argument("--channels", type=int, default=8, help="channels of the many-channel run (default 8)")
     b.add_argument("--soak", type=_positive_float, metavar="GB", help="instead: extract 4 channels from a capture of GB gigabytes and report peak memory")
     b.add_argument("--json", metavar="FILE", help="write the figures as JSON")
@@ -351,14 +405,18 @@ def _cmd_export(args):
     plan = read_plan(args.plan)
     report = export_plan(plan, args.out, coefficient_bits=args.coefficient_bits, vectors=args.vectors)
     print(report.format())
+    if not report.meets_spec:
+        need = f"; {report.bits_needed}-bit coefficients would meet it" if report.bits_needed else ""
+        print(f"warning: the quantised chain does not meet the plan's spec{need} (files written)", file=sys.stderr)
+        return 1
     return 0
 
 
 def _register_export(sub):
-    x = sub.add_parser("export", help="coefficients, bit widths and test vectors for hardware", description="Write a plan's quantised coefficients (CSV, C header, $readmemh hex), its bit-width table and bit-true test vectors.")
+    x = sub.add_parser("export", help="coefficients, bit widths and test vectors for hardware", description="Write a plan's quantised coefficients (CSV, C header, $readmemh hex), its bit-width table and bit-true test vectors. Exit 0 when the quantised chain meets the plan's spec, 1 when not (files still written), 2 for bad input.")
     x.add_argument("plan", metavar="PLAN.yaml")
     x.add_argument("--out", required=True, metavar="DIR", help="output folder (created; an earlier export there is replaced)")
-    x.add_argument("--coefficient-bits", type=_bits, default=None, help="coefficient width (default: the plan's)")
+    x.add_argument("--coefficient-bits", type=_bits, default=None, help="coefficient width in bits (default: the plan's)")
     x.add_argument("--vectors", type=int, default=4096, help="input samples in the test vectors (default 4096; 0 for none)")
     x.set_defaults(func=_cmd_export)
 
@@ -376,23 +434,22 @@ def build_parser():
         prog="channelizer",
         description="Plan, apply, check and hand off multistage decimation chains for IQ captures.",
     )
-    version = sys.modules[__package__].__version__  # the package is loaded before its cli
-    p.add_argument("--version", action="version", version=f"%(prog)s {version}")
+    p.add_argument("--version", action="version", version=f"%(prog)s {sys.modules[__package__].__version__}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
     q = sub.add_parser("plan", help="design the cheapest chain for a channel", description="Design the cheapest decimation chain that meets a ripple and alias-rejection target.")
-    q.add_argument("--rate", type=_rate("rate"), required=True, help="input complex sample rate (e.g. 61.44M)")
-    q.add_argument("--bandwidth", type=_rate("bandwidth"), required=True, help="channel's occupied two-sided bandwidth")
-    q.add_argument("--output-rate", type=_rate("output rate"), default=None, help="required output rate (default: lowest integer-decimation rate >= 1.25 x bandwidth)")
-    q.add_argument("--ripple-db", type=_positive_float, default=0.1, help="largest peak-to-peak passband ripple (default 0.1)")
-    q.add_argument("--rejection-db", type=_positive_float, default=80.0, help="smallest alias rejection (default 80)")
-    q.add_argument("--input-bits", type=_bits, default=16)
-    q.add_argument("--output-bits", type=_bits, default=16)
-    q.add_argument("--coefficient-bits", type=_bits, default=18, help="FIR coefficient width for --objective hardware (default 18)")
-    q.add_argument("--objective", choices=["cpu", "hardware"], default="cpu", help="what to minimise (default cpu)")
-    q.add_argument("--clock", type=_rate("clock"), default=None, help="hardware clock (default: the input rate)")
-    q.add_argument("--stopband-edge", type=_rate("stopband edge"), default=None, help="also attenuate everything beyond this offset from the channel centre (removes the neighbours; default: only what folds onto the passband)")
+    q.add_argument("--rate", type=_rate("rate"), required=True, help="input complex sample rate in samples/s, SI suffixes allowed (e.g. 61.44M)")
+    q.add_argument("--bandwidth", type=_rate("bandwidth"), required=True, help="channel's occupied two-sided bandwidth in Hz (e.g. 200k): the passband is +- half of it")
+    q.add_argument("--output-rate", type=_rate("output rate"), default=None, help="required output rate in samples/s (default: the lowest integer-decimation rate at or above 1.25 x bandwidth)")
+    q.add_argument("--ripple-db", type=_positive_float, default=0.1, help="largest peak-to-peak passband ripple in dB (default 0.1)")
+    q.add_argument("--rejection-db", type=_positive_float, default=80.0, help="smallest alias rejection in dB: how far below the channel anything folding onto the passband must stay (default 80)")
+    q.add_argument("--input-bits", type=_bits, default=16, help="ADC sample width in bits, real and imaginary each (2..32, default 16); sets the CIC register growth")
+    q.add_argument("--output-bits", type=_bits, default=16, help="output sample width in bits for the hardware hand-off (2..32, default 16)")
+    q.add_argument("--coefficient-bits", type=_bits, default=18, help="FIR coefficient width in bits for --objective hardware (default 18)")
+    q.add_argument("--objective", choices=["cpu", "hardware"], default="cpu", help="what to minimise: cpu (multiplies per second in software) or hardware (multipliers at --clock); default cpu")
+    q.add_argument("--clock", type=_rate("clock"), default=None, help="hardware clock in Hz that multipliers are shared at, with --objective hardware only (default: the input rate)")
+    q.add_argument("--stopband-edge", type=_rate("stopband edge"), default=None, help="offset in Hz from the channel centre beyond which everything is also attenuated by --rejection-db (removes the neighbours; default: only what folds onto the passband)")
     q.add_argument("--out", metavar="FILE.yaml", help="write the plan file")
     q.add_argument("--plot", metavar="FILE.png", help="write the response figure")
     q.set_defaults(func=_cmd_plan)
@@ -413,18 +470,21 @@ _EXTRA_COMMANDS = [_register_extract, _register_survey, _register_verify, _regis
 
 def main(argv=None):
     """Run the command line; returns the exit status."""
+    from .io.console import ClosedPipeTolerant
+
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, unknown = parser.parse_known_args(argv)
+    if unknown:  # name the command and the option it does not know
+        sub = f"{parser.prog} {args.command}"
+        print(f"{sub}: error: unknown option or extra argument: {' '.join(unknown)} (see {sub} --help)", file=sys.stderr)
+        return 2
+    # a reader that stops early (| head) must not keep the command from writing its files
+    stdout = sys.stdout = ClosedPipeTolerant(sys.stdout)
     try:
         return args.func(args) or 0
     except ChannelizerError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
-    except BrokenPipeError:
-        # output piped into a program that stopped reading (e.g. head): not an error
-        with contextlib.suppress(OSError):
-            sys.stdout = open(os.devnull, "w")
-        return 0
     except KeyboardInterrupt:
         print("error: interrupted; no output was completed", file=sys.stderr)
         return 130
@@ -432,6 +492,9 @@ def main(argv=None):
         name = f"{exc.filename}: " if exc.filename else ""
         print(f"error: {name}{exc.strerror or exc}", file=sys.stderr)
         return 2
+    finally:
+        stdout.flush()
+        sys.stdout = stdout.stream
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -5,7 +5,7 @@ import re
 
 from .errors import ChannelizerError
 
-__all__ = ["parse_frequency", "format_hz"]
+__all__ = ["parse_frequency", "format_hz", "resolution_step"]
 
 _SUFFIX = {"": 1.0, "k": 1e3, "K": 1e3, "M": 1e6, "G": 1e9}
 _NUMBER = re.compile(
@@ -53,11 +53,28 @@ def parse_frequency(text, *, name="frequency", allow_negative=True):
     return value
 
 
-def format_hz(value, unit="Hz", digits=6):
-    """Format a value in Hz with an SI prefix: ``format_hz(61.44e6) == '61.44 MHz'``."""
+def resolution_step(resolution):
+    """The power of ten at or below ``resolution`` Hz: the last digit a measurement at
+    that resolution can state (``resolution_step(293.0) == 100.0``)."""
+    resolution = float(resolution)
+    if not (resolution > 0 and math.isfinite(resolution)):
+        raise ChannelizerError(f"resolution: {resolution!r} must be a positive finite number of Hz")
+    return 10.0 ** math.floor(math.log10(resolution))
+
+
+def format_hz(value, unit="Hz", digits=6, *, resolution=None, signed=False):
+    """Format a value in Hz with an SI prefix: ``format_hz(61.44e6) == '61.44 MHz'``.
+
+    With ``resolution`` (Hz), the value is printed to the digit that resolution
+    gives (see :func:`resolution_step`), trailing zeros kept:
+    ``format_hz(161.1625e6, resolution=293) == '161.1625 MHz'``.  With ``signed``,
+    a positive value gets a ``+`` (offsets: ``'+100 kHz'``).
+    """
     value = float(value)
     mag = abs(value)
-    for scale, prefix in ((1e9, "G"), (1e6, "M"), (1e3, "k")):
-        if mag >= scale:
-            return f"{value / scale:.{digits}g} {prefix}{unit}"
-    return f"{value:.{digits}g} {unit}"
+    scale, prefix = next(((s, p) for s, p in ((1e9, "G"), (1e6, "M"), (1e3, "k")) if mag >= s), (1.0, ""))
+    sign = "+" if signed else ""
+    if resolution is not None:
+        decimals = max(0, round(math.log10(scale / resolution_step(resolution))))
+        return f"{value / scale:{sign}.{decimals}f} {prefix}{unit}"
+    return f"{value / scale:{sign}.{digits}g} {prefix}{unit}"

@@ -14,10 +14,51 @@ import math
 
 import numpy as np
 
-from ..planning.response import alias_intervals, composite_response, fold, image_step
+from ..planning.response import alias_intervals, fold, image_step, normalised_response
 from ..dsp.detection import detect_signals, estimate_noise_floor
 
-__all__ = ["audit_channel"]
+__all__ = ["audit_channel", "audit_resolution", "format_attenuation", "ATTENUATION_CEILING_DB"]
+
+#: Attenuations are not stated beyond this: the float32 samples the chain runs on
+#: carry about 144 dB of dynamic range (2**-24, IEEE 754 single precision), and
+#: arithmetic rounding in the stages leaves a floor near there; "> 150 dB" is all
+#: that can be said of a larger figure.
+ATTENUATION_CEILING_DB = 150.0
+
+#: Bins per narrowest channel bandwidth in the audit's input spectrum.
+BINS_PER_CHANNEL = 32
+
+#: Longest Welch segment the audit uses (a spacing no finer than fs / 2**20).
+MAX_SEGMENT = 1 << 20
+
+
+def audit_resolution(bandwidths, *, fs, samples=None):
+    """Bin spacing in Hz of the input spectrum for auditing channels of these bandwidths.
+
+    A thirty-second of the narrowest channel, so that signals a fraction of a channel
+    apart are told apart and a narrow signal's attenuation is not smeared over a
+    bin wider than the channel; never finer than ``fs / 2**20``, nor than a
+    spacing that leaves at least 8 Welch segments in ``samples``; never coarser
+    than ``fs / 4096``.
+    """
+    r = min(bandwidths) / BINS_PER_CHANNEL
+    r = max(r, fs / MAX_SEGMENT)
+    if samples:
+        r = max(r, 8.0 * fs / samples)
+    return min(r, fs / 4096.0)
+
+
+def format_attenuation(entry):
+    """An audit entry's attenuation as text: ``'> 150 dB'`` beyond the ceiling."""
+    if entry.get("attenuation_beyond_ceiling"):
+        return f"> {ATTENUATION_CEILING_DB:.0f} dB"
+    return f"{entry['attenuation_db']:.1f} dB"
+
+
+def _worst_gain_db(stages, lo, hi, *, fs, image):
+    """Largest gain (dB) of the normalised response over ``[lo, hi]``, on a dense grid."""
+    f = np.linspace(lo, hi, 65)
+    return 20 * math.log10(max(float(np.abs(normalised_response(stages, f, fs=fs, image=image)).max()), 1e-300))
 
 
 def audit_channel(psd, req, result=None, *, threshold_db=10.0):
@@ -58,30 +99,37 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
         x = fold(psd.freqs[sel] - chan_centre, fs)
         dens = psd.psd[sel]
         total = 0.0
-        worst_att, land = math.inf, 0.0
+        worst_att, land, path = math.inf, 0.0, 0
         for a, b, k in intervals:
             m = (x >= a) & (x <= b)
             if not np.any(m):
                 continue
-            h2 = np.abs(composite_response(plan.stages, x[m], fs=fs, image=k)) ** 2
+            h2 = np.abs(normalised_response(plan.stages, x[m], fs=fs, image=k)) ** 2
             total += float(np.sum(dens[m] * h2) * bin_hz)
-            att = -10 * math.log10(max(float(h2.max()), 1e-300))
+            # the worst over the signal's part of this band, not only at the bin centres
+            edge_lo = max(a, float(x[m].min()) - bin_hz / 2)
+            edge_hi = min(b, float(x[m].max()) + bin_hz / 2)
+            att = -_worst_gain_db(plan.stages, edge_lo, edge_hi, fs=fs, image=k)
             if att < worst_att:
-                worst_att = att
+                worst_att, path = att, k
                 land = float(fold(np.mean(x[m]) + k * step, plan.output_rate))
         if total <= 0:
             continue
-        level = 10 * math.log10(total)
+        beyond = worst_att > ATTENUATION_CEILING_DB
+        # a level below what float32 arithmetic holds is not stated either
+        level = max(10 * math.log10(total), float(sig.power_dbfs) - ATTENUATION_CEILING_DB)
         width = min(2 * fp, sig.occupied_bandwidth_hz)
         density = level - 10 * math.log10(max(width, bin_hz))
         entry = {
             "signal_center_hz": float(sig.center_hz),
             "signal_bandwidth_hz": float(sig.occupied_bandwidth_hz),
             "signal_power_dbfs": round(float(sig.power_dbfs), 2),
-            "attenuation_db": round(worst_att, 2),
+            "attenuation_db": round(min(worst_att, ATTENUATION_CEILING_DB), 2),
+            "attenuation_beyond_ceiling": bool(beyond),
             "output_level_dbfs": round(level, 2),
             "output_level_dbfs_per_hz": round(density, 2),
             "landing_offset_hz": round(land, 1),
+            "path": "alias" if path == 0 else f"image {path} of the rational stage",
             "output_noise_floor_dbfs_per_hz": None if noise_out is None else round(noise_out, 2),
             "above_noise": bool(density > noise_out),
         }

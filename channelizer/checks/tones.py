@@ -12,8 +12,7 @@ import math
 import numpy as np
 import scipy.optimize
 
-from ..planning.response import alias_intervals, composite_response, resampler_of
-from ..planning.stages import ResamplerStage, chain_rates
+from ..planning.response import alias_intervals, normalised_response, resampler_of
 
 
 PASSBAND_GRID = 17
@@ -36,16 +35,7 @@ def _resampler(stages, fs):
 
 def _path_gain(stages, f, *, fs, image, up):
     """Complex gain of path ``image``: the composite response over the up-sampling factor."""
-    return composite_response(stages, f, fs=fs, image=image) / up
-
-
-def _impulse_seconds(stages, fs):
-    """Length of the chain's impulse response in seconds (every stage's taps at their own rate)."""
-    total = 0.0
-    for st, rate in zip(stages, chain_rates(stages, fs=fs)):
-        tap_rate = rate * st.interpolation if isinstance(st, ResamplerStage) else rate
-        total += (st.num_taps - 1) / tap_rate
-    return total
+    return normalised_response(stages, f, fs=fs, image=image)
 
 
 def _db(x):

@@ -10,7 +10,7 @@ per image path ``k``, at ``fold(f + k fs_r, fs_out)`` with complex amplitude
 2010, sec. 4.6-4.7; :mod:`channelizer.response`).  A least-squares fit of those
 exponentials to the settled output gives each path's gain exactly, whatever the
 number of samples, so the measured gain is compared tone by tone with
-``|H_k(f)| / L`` from :func:`channelizer.response.composite_response`.
+``|H_k(f)| / L`` from :func:`channelizer.planning.response.normalised_response`.
 
 Tones
 -----
@@ -65,10 +65,11 @@ import numbers
 import numpy as np
 
 from ..errors import ChannelizerError
+from ..units import format_hz
 from ..planning.plan import Plan
-from ..planning.response import fold, predict
+from ..planning.response import fold, impulse_seconds, predict
 from ..planning.stages import chain_rates
-from .tones import _alias_tones, _db, _impulse_seconds, _noise_gain, _passband_tones, _path_gain, _resampler
+from .tones import _alias_tones, _db, _noise_gain, _passband_tones, _path_gain, _resampler
 
 __all__ = ["ToneMeasurement", "Verification", "verify_plan"]
 
@@ -191,7 +192,23 @@ class Verification:
     fit_samples: int
     seed: int = 0
     plan_sha256: str = ""
+    ripple_uncertainty_db: float = 0.0
+    dc_spur_dbfs: float | None = None
     stages: tuple = field(default=(), repr=False, compare=False)
+
+    @property
+    def verdict(self):
+        """``'meets'``, ``'does not meet'``, or ``'inconclusive'``.
+
+        Inconclusive: a figure misses the spec only by what the measurement's own
+        floor can hide (the worst alias within 6 dB of its floor, the ripple
+        within its three-sigma uncertainty), and nothing misses it beyond that.
+        """
+        if self.meets_spec:
+            return "meets"
+        ripple_misses = self.measured_ripple_db - self.ripple_uncertainty_db > self.spec_ripple_db
+        rejection_misses = self.measured_rejection_db < self.spec_rejection_db and not self.floor_limited
+        return "does not meet" if ripple_misses or rejection_misses else "inconclusive"
 
     @property
     def passband(self):
@@ -211,6 +228,7 @@ class Verification:
                 d[f.name] = getattr(self, f.name)
         d["tones"] = [asdict(t) for t in self.tones]
         d["plan_predicted"] = dict(self.plan_predicted)
+        d["verdict"] = self.verdict
         return _finite(d)
 
     def to_json(self, *, indent=1):
@@ -229,10 +247,20 @@ class Verification:
             f"{' (bit-true)' if self.bit_true else ''}",
             f"passband ripple: measured {db(self.measured_ripple_db)}, predicted {db(self.predicted_ripple_db)}, "
             f"spec {db(self.spec_ripple_db)}; largest tone error {db(self.max_passband_error_db)}",
-            f"alias rejection: measured {db(self.measured_rejection_db)}{bound} at {self.worst_alias_hz:.6g} Hz "
-            f"(path {self.worst_alias_image}), predicted {db(self.predicted_rejection_db)}, spec {db(self.spec_rejection_db)}",
-            f"verdict: {'meets' if self.meets_spec else 'does not meet'} the spec",
+            f"alias rejection: measured {db(self.measured_rejection_db)}{bound} at {format_hz(self.worst_alias_hz, signed=True)} "
+            f"({'alias' if self.worst_alias_image == 0 else f'image path {self.worst_alias_image} of the rational stage'}), predicted {db(self.predicted_rejection_db)}, spec {db(self.spec_rejection_db)}",
+        ] + ([f"DC spur: {self.dc_spur_dbfs:.1f} dBFS at 0 Hz (offset of the integer path's roundings; "
+               "taken out of tones landing there, not counted as an alias)"]
+             if self.dc_spur_dbfs is not None else []) + [
+            f"verdict: {self.verdict_text()}",
         ]
+
+    def verdict_text(self):
+        """The verdict in words; an inconclusive one says why."""
+        if self.verdict == "inconclusive":
+            return ("inconclusive: the measurement's own noise floor is above what the spec asks "
+                    "(see floor_db); it neither meets nor misses the spec")
+        return f"{self.verdict} the spec"
 
 
 def _finite(obj):
@@ -408,7 +436,7 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
     fs_out = chain_rates(stages, fs=fs)[-1]
     up, fs_r = _resampler(stages, fs)
 
-    settle = int(math.ceil(_impulse_seconds(stages, fs) * fs_out)) + 2
+    settle = int(math.ceil(impulse_seconds(stages, fs=fs) * fs_out)) + 2
     n_out = settle + fit_samples
     n_in = int(math.ceil((n_out + 1) * fs / fs_out)) + 1  # one spare output against rounding of the rates
 
@@ -428,7 +456,7 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
         floor_abs = amp * 10.0 ** (FLOAT_FLOOR_DB / 20.0)
     # a path that lands this close to 0 Hz cannot be told from an offset at the output
     near_dc = 2.0 * fs_out / fit_samples
-    rows, offsets = [], []
+    rows, offsets, on_dc_runs = [], [], []
     for (f, k, worst, band), phase in zip(plan_tones, phases):
         y = runner.run(f / fs, n_in, phase, rng)
         if y.size < n_out:
@@ -443,13 +471,23 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
         sep = bool(np.min(np.abs(freqs)) > near_dc)
         a, err = _fit(y, freqs, fs_out=fs_out, start=settle, dc=bit_true and sep)
         if bit_true and sep:
-            offsets.append(abs(a[-1]))
+            offsets.append(complex(a[-1]))
         u = int(inverse[k])
         same = np.flatnonzero(inverse == u)
         h = sum(_path_gain(stages, np.array([f]), fs=fs, image=int(j), up=up)[0] for j in same)
         dc_landing = abs(freqs[u]) <= near_dc
-        rows.append((f, k, float(freqs[u]), band, abs(h), abs(a[u]), max(err, floor_abs), worst, dc_landing))
-    offset = float(np.median(offsets)) if offsets else 0.0
+        if bit_true and dc_landing:
+            on_dc_runs.append((len(rows), y, freqs, u))
+        rows.append([f, k, float(freqs[u]), band, abs(h), abs(a[u]), max(err, floor_abs), worst, dc_landing])
+    # The offset is a DC spur of the integer path, not an alias: a tone landing next to
+    # 0 Hz is fitted again with the offset measured on all the other tones taken out,
+    # and the offset's own uncertainty (its spread over sqrt(n) tones) is that tone's floor.
+    dc_spur = complex(np.median(np.real(offsets)), np.median(np.imag(offsets))) if offsets else 0j
+    spur_err = float(np.std(offsets) / math.sqrt(len(offsets))) if len(offsets) > 1 else abs(dc_spur)
+    for i, y, freqs, u in on_dc_runs:
+        a, err = _fit(y - dc_spur, freqs, fs_out=fs_out, start=settle)
+        rows[i][5], rows[i][6] = abs(a[u]), max(err, floor_abs)
+    offset = spur_err
     records = [
         ToneMeasurement(
             input_hz=float(f),
@@ -470,6 +508,8 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
     ripple = float(pm.max() - pm.min())
     dc = next(r for r in pb if r.input_hz == 0.0)
     pb_err = float(max(abs(r.measured_db - r.predicted_db) for r in pb))
+    # each passband gain is known to 3 sigma of its fit: the ripple to twice that (common practice)
+    ripple_unc = 2.0 * 20.0 * math.log10(1.0 + 3.0 * 10.0 ** (max(r.floor_db for r in pb) / 20.0))
     if al:
         w = max(al, key=lambda r: r.measured_db)
         rejection = dc.measured_db - w.measured_db
@@ -511,6 +551,8 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
         fit_samples=int(fit_samples),
         seed=int(seed),
         plan_sha256=sha,
+        ripple_uncertainty_db=float(ripple_unc),
+        dc_spur_dbfs=(20.0 * math.log10(abs(dc_spur)) if abs(dc_spur) > 0 else None) if bit_true else None,
         stages=tuple(stages),
     )
 

@@ -92,6 +92,36 @@ def _find_capture(capture_path):
     return None
 
 
+def _before_after(capture, extraction, entries, out_dir, figures):
+    """The channel with the most folding neighbours, by plain decimation and by its chain."""
+    from ..checks.plain_decimation import plain_decimation_psd
+    from ..run.timing import channel_timing
+    from ..views.before_after import plot_before_after
+
+    best = None
+    for ch in extraction.channels:
+        plan = None if ch.spectrum is None else _plan_of(ch, entries)
+        if plan is None:
+            continue
+        step = channel_timing(plan.stages, fs=capture.sample_rate).step
+        if step.denominator == 1 and (best is None or len(ch.alias_audit) > len(best[0].alias_audit)):
+            best = (ch, plan, int(step))
+    if best is None:
+        return
+    ch, plan, d = best
+    plain = plain_decimation_psd(capture, offset=ch.offset, decimation=d, nperseg=ch.spectrum.nperseg)
+    figures["before-after"] = os.path.join(out_dir, "before-after.png")
+    figures["before-after-channel"] = ch.name
+    plot_before_after(plain, ch.spectrum, name=ch.name, bandwidth=plan.bandwidth, decimation=d, path=figures["before-after"])
+
+
+def _plan_of(ch, entries):
+    from ..run.extraction import load_plan_file
+
+    entry = next((e for e in entries if e.name == ch.name and e.plan), None)
+    return None if entry is None else load_plan_file(entry.plan)[0]
+
+
 def run_demo(out_dir, *, capture_path=None, progress=False):
     """Run the whole job on the demo capture and write ``out_dir/report.html``."""
     from ..io.captures import open_capture
@@ -144,6 +174,7 @@ def run_demo(out_dir, *, capture_path=None, progress=False):
         raise ChannelizerError(f"{path}: no channel annotations; regenerate it with `channelizer demo --write-capture`")
     ch_dir = os.path.join(out_dir, "channels")
     extraction = run_extraction(capture, entries, ch_dir, base_dir="/", progress=progress)
+    _before_after(capture, extraction, entries, out_dir, figures)
 
     verification = None
     try:

@@ -12,6 +12,7 @@ import re
 import numpy as np
 
 from ..errors import ChannelizerError
+from ..units import resolution_step
 from .chi2 import chi2_ppf
 from .spectrum import _db, _finite
 
@@ -21,7 +22,24 @@ _CLIP_FALSE_ALARM = 1e-3
 #: Occupied bandwidth: fraction of power left out on each side (ITU-R SM.328).
 _OBW_TAIL = 0.005
 
-__all__ = ["DetectedSignal", "estimate_noise_floor", "detect_signals", "channel_list_from_signals"]
+__all__ = [
+    "DetectedSignal",
+    "estimate_noise_floor",
+    "noise_floor_profile",
+    "detect_signals",
+    "channel_list_from_signals",
+]
+
+#: Regions of the local noise-floor estimate (fewer when they would hold under 64 bins).
+FLOOR_REGIONS = 32
+#: Neighbouring regions of the local noise floor differing by less than this (dB) are both noise.
+FLOOR_STEP_DB = 3.0
+#: Runs less than this far (dB) over the threshold may be fragments of a strong neighbour ...
+FRAGMENT_MARGIN_DB = 3.0
+#: ... when they lie within this many of its occupied widths.
+FRAGMENT_REACH = 2.0
+#: A detection whose power is mostly within this many window main lobes of its peak is a carrier.
+_CARRIER_SHARE = 0.5
 
 
 def _median_to_mean(dof, quantile=0.5):
@@ -89,6 +107,71 @@ def estimate_noise_floor(psd):
     return floor
 
 
+def noise_floor_profile(psd, *, regions=FLOOR_REGIONS):
+    """Noise PSD per bin (linear, per Hz), estimated locally: a shaped receiver passband.
+
+    Parameters
+    ----------
+    psd : Psd
+    regions : int
+        The band is cut into this many equal regions (fewer when a region would hold
+        fewer than 64 bins).
+
+    Returns
+    -------
+    ndarray
+        One noise density per bin of ``psd``.
+
+    Notes
+    -----
+    Each region's level is the median of its bins over the chi-square
+    median-to-mean ratio (see :func:`estimate_noise_floor`).  Regions within
+    ``FLOOR_STEP_DB`` of the band-wide floor are noise; from them the noise grows
+    region by region into neighbours whose level differs by less than
+    ``FLOOR_STEP_DB`` from theirs: a receiver's passband shape changes smoothly,
+    while the edge of a wide signal jumps.  Regions never reached (under a wide
+    signal) take the floor interpolated, in dB, from the nearest noise regions.
+    Last, bins standing above the local floor by more than noise does with
+    probability 1e-3 (and their leakage guard) are left out, and each noise
+    region's floor becomes the median of the bins kept, over the truncated
+    chi-square ratio.  A wide signal within ``FLOOR_STEP_DB`` of the floor beside
+    it is taken for part of the floor's shape.
+    """
+    p = np.asarray(psd.psd, dtype=float)
+    n = p.size
+    regions = int(max(1, min(regions, n // 64)))
+    floor = estimate_noise_floor(psd)
+    if regions == 1 or floor <= 0:
+        return np.full(n, floor)
+    nu = float(psd.dof)
+    bounds = np.linspace(0, n, regions + 1).astype(int)
+    centres = 0.5 * (bounds[:-1] + bounds[1:] - 1)
+    level = np.array([np.median(p[a:b]) for a, b in zip(bounds[:-1], bounds[1:])]) / _median_to_mean(nu)
+    db = 10.0 * np.log10(np.maximum(level, 1e-300))
+    noise = np.abs(db - 10.0 * math.log10(floor)) < FLOOR_STEP_DB
+    if not noise.any():
+        noise[int(np.argmin(db))] = True
+    while True:  # grow into smoothly continuing neighbours
+        grow = np.zeros_like(noise)
+        grow[1:] |= noise[:-1] & (np.abs(db[1:] - db[:-1]) < FLOOR_STEP_DB)
+        grow[:-1] |= noise[1:] & (np.abs(db[:-1] - db[1:]) < FLOOR_STEP_DB)
+        grow &= ~noise
+        if not grow.any():
+            break
+        noise |= grow
+    profile = 10.0 ** np.interp(np.arange(n), centres[noise], db[noise] / 10.0)
+    # refine the noise regions with the trimmed median against the local floor
+    clip = _median_to_mean(nu, 1.0 - _CLIP_FALSE_ALARM)  # chi2.isf(1e-3, nu) / nu
+    keep = ~_dilate(p > profile * clip, int(math.ceil(2.0 * psd.enbw_bins)))
+    kept_ratio = _median_to_mean(nu, 0.5 * (1.0 - _CLIP_FALSE_ALARM))
+    for r in np.flatnonzero(noise):
+        a, b = bounds[r], bounds[r + 1]
+        kept = p[a:b][keep[a:b]]
+        if kept.size >= max(8, (b - a) // 4):
+            db[r] = 10.0 * math.log10(max(float(np.median(kept)) / kept_ratio, 1e-300))
+    return 10.0 ** np.interp(np.arange(n), centres[noise], db[noise] / 10.0)
+
+
 @dataclass(frozen=True)
 class DetectedSignal:
     """One occupied band found in a spectrum.
@@ -108,6 +191,9 @@ class DetectedSignal:
         ``power / (noise_floor * occupied_bandwidth_hz)``.
     peak_hz : float
         Centre of the strongest bin.
+    carrier : bool
+        Whether most of the power sits in the window's main lobe around the peak; the
+        centre is then the interpolated peak, otherwise the occupied band's middle.
     """
 
     center_hz: float
@@ -117,6 +203,7 @@ class DetectedSignal:
     power_dbfs: float
     snr_db: float
     peak_hz: float
+    carrier: bool = False
 
 
 def _runs(mask):
@@ -144,8 +231,9 @@ def detect_signals(psd, *, threshold_db=10.0, min_bandwidth_hz=None, noise_floor
         A bin is occupied when it is this far above the noise floor.
     min_bandwidth_hz : float, optional
         Leave out signals whose occupied bandwidth is narrower.
-    noise_floor : float, optional
-        Noise PSD (linear, per Hz); by default :func:`estimate_noise_floor`.
+    noise_floor : float or ndarray, optional
+        Noise PSD (linear, per Hz), one value or one per bin (e.g.
+        :func:`noise_floor_profile`); by default :func:`estimate_noise_floor`.
 
     Returns
     -------
@@ -165,6 +253,14 @@ def detect_signals(psd, *, threshold_db=10.0, min_bandwidth_hz=None, noise_floor
     limited by the resolution: a pure tone reads about the window's own 99 %
     width (about 2-3 bins for Hann).
 
+    A signal is kept when its in-band SNR (its power over the noise in its
+    occupied band) reaches ``threshold_db``.  A run less than
+    ``FRAGMENT_MARGIN_DB`` over that, within ``FRAGMENT_REACH`` occupied widths of
+    a stronger signal, is a fragment of that emission and joins it; a run under
+    the threshold anywhere else is dropped.  When at least half the power lies within ``2 enbw`` bins of the
+    peak (a carrier), the centre is the peak refined by Gaussian interpolation
+    to a fraction of a bin; otherwise it is the middle of the occupied band.
+
     References
     ----------
     .. [1] P. D. Welch, IEEE Trans. Audio Electroacoust. 15(2):70-73, 1967.
@@ -174,35 +270,105 @@ def detect_signals(psd, *, threshold_db=10.0, min_bandwidth_hz=None, noise_floor
     threshold_db = _finite("threshold_db", threshold_db)
     if min_bandwidth_hz is not None:
         min_bandwidth_hz = _finite("min_bandwidth_hz", min_bandwidth_hz)
-    floor = estimate_noise_floor(psd) if noise_floor is None else _finite("noise_floor", noise_floor)
-    if floor < 0:
-        raise ChannelizerError(f"noise_floor must be a non-negative PSD, got {noise_floor!r}")
     p = np.asarray(psd.psd, dtype=float)
+    floor = _floor_per_bin(psd, p, noise_floor)
     f = np.asarray(psd.freqs, dtype=float)
-    df = psd.bin_hz
     gap = max(3, int(math.ceil(2.0 * psd.enbw_bins)))
+    thr = 10.0 ** (threshold_db / 10.0)
 
-    starts, ends = _runs(p > floor * 10.0 ** (threshold_db / 10.0))
+    starts, ends = _runs(p > floor * thr)
     if starts.size == 0:
         return []
     # merge runs separated by fewer than `gap` free bins
     split = (starts[1:] - ends[:-1] - 1) >= gap
     starts = starts[np.concatenate([[True], split])]
     ends = ends[np.concatenate([split, [True]])]
+    # fragments (in-band SNR under the threshold) join a strong neighbour close by, or go
+    first = _measure_runs(psd, p, floor, f, starts, ends, gap)
+    snr = np.array([-math.inf if m is None else m.snr_db for m in first])
+    width = np.array([0.0 if m is None else m.occupied_bandwidth_hz / psd.bin_hz for m in first])
+    starts, ends = _absorb_fragments(starts, ends, snr - threshold_db, np.maximum(width, ends - starts + 1))
+    found = []
+    for sig in _measure_runs(psd, p, floor, f, starts, ends, gap):
+        if sig is None or sig.snr_db < threshold_db:
+            continue
+        if min_bandwidth_hz is not None and sig.occupied_bandwidth_hz < min_bandwidth_hz:
+            continue
+        found.append(sig)
+    return found
 
+
+def _floor_per_bin(psd, p, noise_floor):
+    if noise_floor is None:
+        return np.full(p.size, estimate_noise_floor(psd))
+    arr = np.asarray(noise_floor, dtype=float)
+    if arr.ndim == 0:
+        arr = np.full(p.size, float(_finite("noise_floor", float(arr))))
+    if arr.shape != p.shape or not np.all(np.isfinite(arr)):
+        raise ChannelizerError(f"noise_floor must be one finite density or one per bin ({p.size}), got shape {arr.shape}")
+    if np.any(arr < 0):
+        raise ChannelizerError(f"noise_floor must be a non-negative PSD, got {noise_floor!r}")
+    return arr
+
+
+def _absorb_fragments(starts, ends, margin_db, width):
+    """Runs after fragments join a strong neighbour close by; weak isolated runs drop out.
+
+    ``margin_db`` is each run's in-band SNR over the threshold and ``width`` its
+    width in bins.  A run at least ``FRAGMENT_MARGIN_DB`` over the threshold is
+    strong.  Any other run within ``FRAGMENT_REACH`` of a strong run's widths of it
+    is a fragment of that emission (a sideband, a lobe of its spectrum, a ragged
+    skirt) and joins it; a run under the threshold anywhere else is a noise peak
+    that crossed it in a few bins and is dropped.
+    """
+    strong = margin_db >= FRAGMENT_MARGIN_DB
+    s, e = starts.copy(), ends.copy()
+    keep = margin_db >= 0
+    idx = np.flatnonzero(strong)
+    for i in np.flatnonzero(~strong) if idx.size else ():
+        gaps = np.where(idx > i, starts[idx] - ends[i] - 1, starts[i] - ends[idx] - 1)
+        k = int(np.argmin(gaps))
+        j = idx[k]
+        if gaps[k] <= FRAGMENT_REACH * width[j]:
+            s[j], e[j] = min(s[j], starts[i]), max(e[j], ends[i])
+            keep[i] = False
+    return s[keep], e[keep]
+
+
+def _interpolated_peak(p, k):
+    """Fractional bin offset of the peak at ``k``: a parabola through the log powers.
+
+    Gaussian interpolation (Gasior & Gonzalez, CERN AB-Note-2004-021): exact for a
+    Gaussian window and within a few hundredths of a bin for Hann.
+    """
+    if k <= 0 or k >= p.size - 1 or min(p[k - 1], p[k], p[k + 1]) <= 0:
+        return 0.0
+    la, lb, lc = np.log(p[k - 1 : k + 2])
+    den = la - 2.0 * lb + lc
+    if den >= 0:
+        return 0.0
+    return float(np.clip(0.5 * (la - lc) / den, -0.5, 0.5))
+
+
+def _measure_runs(psd, p, floor, f, starts, ends, gap):
+    """One DetectedSignal (or None) per run, each widened by ``gap`` bins short of its neighbours."""
+    if starts.size == 0:
+        return []
+    df = psd.bin_hz
     # widen by the guard, not past the midpoint to the neighbours
     lo = np.maximum(starts - gap, 0)
     hi = np.minimum(ends + gap, p.size - 1)
     mid = (ends[:-1] + starts[1:]) // 2
     lo[1:] = np.maximum(lo[1:], mid + 1)
     hi[:-1] = np.minimum(hi[:-1], mid)
-
-    found = []
+    lobe = int(math.ceil(2.0 * psd.enbw_bins))
+    out = []
     for a, b, s0, s1 in zip(lo, hi, starts, ends):
-        part = (p[a : b + 1] - floor) * df
+        part = (p[a : b + 1] - floor[a : b + 1]) * df
         cum = np.concatenate([[0.0], np.cumsum(part)])
         total = cum[-1]
         if total <= 0:
+            out.append(None)
             continue
         edges = f[a] - df / 2 + df * np.arange(part.size + 1)
         lower = _crossing(cum, edges, _OBW_TAIL * total)
@@ -210,28 +376,31 @@ def detect_signals(psd, *, threshold_db=10.0, min_bandwidth_hz=None, noise_floor
         rcum = np.concatenate([[0.0], np.cumsum(part[::-1])])
         upper = -_crossing(rcum, -edges[::-1], _OBW_TAIL * total)
         obw = upper - lower
-        if min_bandwidth_hz is not None and obw < min_bandwidth_hz:
-            continue
         peak = s0 + int(np.argmax(p[s0 : s1 + 1]))
-        snr = total / (floor * obw) if floor > 0 else math.inf
-        found.append(
+        noise = float(np.mean(floor[a : b + 1])) * obw
+        snr = total / noise if noise > 0 else math.inf
+        near = part[max(peak - lobe, a) - a : min(peak + lobe, b) - a + 1].sum()
+        carrier = near >= _CARRIER_SHARE * total
+        centre = f[peak] + _interpolated_peak(p, peak) * df if carrier else 0.5 * (lower + upper)
+        out.append(
             DetectedSignal(
-                center_hz=0.5 * (lower + upper),
+                center_hz=float(centre),
                 occupied_bandwidth_hz=obw,
                 lower_hz=lower,
                 upper_hz=upper,
                 power_dbfs=float(_db(total)),
                 snr_db=float(_db(snr)),
                 peak_hz=float(f[peak]),
+                carrier=bool(carrier),
             )
         )
-    return found
+    return out
 
 
 _PREFIX = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
 
 
-def channel_list_from_signals(signals, *, prefix="sig"):
+def channel_list_from_signals(signals, *, prefix="sig", resolution=None):
     """Channel entries for detected signals, named ``sig01``, ``sig02``, ...
 
     Parameters
@@ -239,6 +408,9 @@ def channel_list_from_signals(signals, *, prefix="sig"):
     signals : sequence of DetectedSignal
     prefix : str
         Start of each name: a letter, then letters, digits, ``_`` or ``-``.
+    resolution : float, optional
+        The spectrum's resolution in Hz: centres are rounded, and bandwidths
+        rounded up, to the digit it gives (:func:`channelizer.units.resolution_step`).
 
     Returns
     -------
@@ -253,6 +425,7 @@ def channel_list_from_signals(signals, *, prefix="sig"):
             f"channel name prefix must be a letter followed by letters, digits, '_' or '-', got {prefix!r}"
         )
     signals = list(signals)
+    step = None if resolution is None else resolution_step(resolution)
     width = max(2, len(str(len(signals))))
     out = []
     for i, s in enumerate(signals, start=1):
@@ -261,8 +434,16 @@ def channel_list_from_signals(signals, *, prefix="sig"):
         out.append(
             {
                 "name": f"{prefix}{i:0{width}d}",
-                "frequency": float(s.center_hz),
-                "bandwidth": float(s.occupied_bandwidth_hz),
+                "frequency": _rounded(s.center_hz, step, round),
+                "bandwidth": _rounded(s.occupied_bandwidth_hz, step, math.ceil),
             }
         )
     return out
+
+
+def _rounded(value, step, how):
+    """``value`` to a whole number of ``step`` (None: unchanged), as a clean float."""
+    if step is None:
+        return float(value)
+    digits = max(0, -int(math.floor(math.log10(step))))
+    return float(round(how(value / step) * step, digits))

@@ -31,6 +31,7 @@ import math
 import numpy as np
 
 from ..errors import ChannelizerError
+from ..units import format_hz
 
 __all__ = [
     "Psd",
@@ -83,7 +84,7 @@ def _segment_length(fs, resolution, nperseg):
         resolution = _positive("resolution", resolution)
         if resolution > fs / 2:
             raise ChannelizerError(
-                f"resolution {resolution:g} Hz is coarser than half the sample rate {fs:g} Hz"
+                f"resolution {format_hz(resolution)} is coarser than half the sample rate {format_hz(fs, 'sps')}"
             )
         target = fs / resolution
         n = 1
@@ -195,6 +196,10 @@ class _Segmenter:
             self.segments += count
         # copy: never hold on to (a view of) the caller's block
         self._tail = np.array(buf[count * self.step :], copy=True)
+
+    def restart(self):
+        """Drop the samples of an unfinished segment: the next block does not follow on."""
+        self._tail = np.zeros(0, dtype=np.complex64)
 
 
 # --------------------------------------------------------------------------- Welch PSD
@@ -339,6 +344,10 @@ class WelchAccumulator:
         """Add a block of samples (1-D, complex or real) that follows the previous one."""
         self._seg.feed(block, self._add)
 
+    def restart(self):
+        """The next block does not follow the previous one: no segment spans the gap."""
+        self._seg.restart()
+
     def _add(self, first, periodograms):
         self._sum += periodograms.sum(axis=0, dtype=np.float64)
 
@@ -411,7 +420,7 @@ def tone_power_dbfs(psd, frequency, *, span_bins=None, noise_floor=None):
     frequency = _finite("frequency", frequency)
     lo, hi = psd.freqs[0] - psd.bin_hz / 2, psd.freqs[-1] + psd.bin_hz / 2
     if not lo <= frequency < hi:
-        raise ChannelizerError(f"tone frequency {frequency:g} Hz is outside the spectrum [{lo:g}, {hi:g}) Hz")
+        raise ChannelizerError(f"tone frequency {format_hz(frequency)} is outside the spectrum [{format_hz(lo)}, {format_hz(hi)})")
     if span_bins is None:
         span_bins = int(math.ceil(3.0 * psd.enbw_bins))
     elif isinstance(span_bins, bool) or not isinstance(span_bins, (int, np.integer)) or span_bins < 0:

@@ -68,6 +68,7 @@ import numbers
 import numpy as np
 
 from ..errors import ChannelizerError
+from ..units import format_hz
 from ..dsp.fixedpoint import (
     IntegerCic,
     IntegerFir,
@@ -77,7 +78,7 @@ from ..dsp.fixedpoint import (
 from ..planning.quantize import QuantizedTaps, quantize_taps
 from ..planning.hogenauer import CicRegisters, _checked_int, cic_registers
 from ..planning.plan import Plan
-from ..planning.response import composite_response
+from ..planning.response import normalised_response
 from ..planning.stages import CicStage, ResamplerStage, chain_rates
 from .bit_widths import BitWidthRow, BitWidthTable, NoiseTerm, _rounding_ms
 
@@ -293,9 +294,9 @@ class IntegerChain:
         offset = _real(offset, "offset")
         rate = float(plan.input_rate) if fs is None else _real(fs, "fs")
         if not math.isclose(rate, plan.input_rate, rel_tol=1e-9):
-            raise ChannelizerError(f"fs {rate:g} Hz differs from the plan's input rate {plan.input_rate:g} Hz")
+            raise ChannelizerError(f"fs {format_hz(rate, 'sps')} differs from the plan's input rate {format_hz(plan.input_rate, 'sps')}")
         if abs(offset) >= rate / 2:
-            raise ChannelizerError(f"offset {offset:g} Hz is outside +-fs/2 = +-{rate / 2:g} Hz")
+            raise ChannelizerError(f"offset {format_hz(offset)} is outside +-fs/2 = +-{format_hz(rate / 2)}")
         g = _checked_int(internal_guard_bits, "internal_guard_bits", low=1, high=16)
         if coefficient_bits is not None:
             coefficient_bits = _checked_int(coefficient_bits, "coefficient_bits", low=2, high=32)
@@ -542,19 +543,19 @@ class IntegerChain:
         fs = self.fs
         rates = chain_rates(plan_stages, fs=fs)
         spacing = fs
-        images, gain = 1, 1.0
+        images = 1
         for st, r in zip(plan_stages, rates):
             if isinstance(st, CicStage):
                 continue
             up = st.interpolation
             spacing = min(spacing, r * up / (8.0 * len(st.taps)))
             if isinstance(st, ResamplerStage):
-                images, gain = up, float(up)
+                images = up
         n = int(min(max(math.ceil(fs / spacing), 4096), _MAX_GRID))
         f = (np.arange(n) / n - 0.5) * fs
         total = np.zeros(n)
         for k in range(images):
-            h = composite_response(plan_stages, f, fs=fs, image=k)
-            hq = composite_response(self.quantized_stages, f, fs=fs, image=k)
+            h = normalised_response(plan_stages, f, fs=fs, image=k)
+            hq = normalised_response(self.quantized_stages, f, fs=fs, image=k)
             total += np.abs(hq - h) ** 2
-        return float(total.max()) / gain**2 / 2.0
+        return float(total.max()) / 2.0

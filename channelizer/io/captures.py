@@ -83,6 +83,8 @@ class Capture:
     metadata: dict = dataclasses.field(default_factory=dict)
     container: str = "raw"
     nonfinite_count: int = 0
+    #: ``core:datetime`` of the first capture segment (time of sample 0), when stated.
+    start_datetime: str | None = None
     _map: np.ndarray | None = dataclasses.field(default=None, init=False, repr=False)
 
     @property
@@ -533,6 +535,7 @@ def _open_sigmf(given, base, opt_datatype, opt_rate, opt_center):
         data_offset=header,
         metadata=glob,
         container="sigmf",
+        start_datetime=first.get("core:datetime") if isinstance(first.get("core:datetime"), str) else None,
     )
 
 

@@ -23,13 +23,15 @@ class ChannelEntry:
     """A requested channel before it is tied to a capture.
 
     ``frequency`` is in Hz; ``is_offset`` says whether it is relative to the
-    capture centre; ``plan`` is a plan file path or None (use ``--plan``).
+    capture centre; ``plan`` is a plan file path or None (use ``--plan``);
+    ``bandwidth`` is the listed occupied bandwidth in Hz, when given.
     """
 
     name: str
     frequency: float
     is_offset: bool
     plan: str | None = None
+    bandwidth: float | None = None
 
 
 def _frequency(value, where):
@@ -92,7 +94,12 @@ def parse_channel_list(text, *, source="channel list"):
         plan = item.get("plan")
         if plan is not None and not isinstance(plan, str):
             raise ChannelizerError(f"{where} ({name}): plan must be a file path, got {shown(plan)}")
-        out.append(ChannelEntry(name, f, off, plan))
+        bw = None
+        if item.get("bandwidth") is not None:
+            bw, _ = _frequency(item["bandwidth"], f"{where} ({name}) bandwidth")
+            if not bw > 0:
+                raise ChannelizerError(f"{where} ({name}): bandwidth must be above 0 Hz, got {shown(item['bandwidth'])}")
+        out.append(ChannelEntry(name, f, off, plan, bw))
     return out
 
 

@@ -93,6 +93,11 @@ def parse_datatype(text):
     SigMF specification, Global object, ``core:datatype``.
     """
     m = _GRAMMAR.match(text) if isinstance(text, str) else None
+    if m is None and isinstance(text, str) and _GRAMMAR.match(text + "_le"):
+        raise ChannelizerError(
+            f"datatype {shown(text)} is not a SigMF datatype: it needs its byte order, {text}_le (little-endian,"
+            f" the usual) or {text}_be; e.g. {', '.join(DATATYPE_EXAMPLES)}"
+        )
     if m is None:
         raise ChannelizerError(
             f"datatype {shown(text)} is not a SigMF datatype; expected (c|r) + (f32|f64|i32|i16|u32|u16)"

@@ -91,8 +91,28 @@ def _wav_layout(path, fh, size):
                     f"{path}: WAV data chunk declares {csize} bytes but only {size - body} follow;"
                     " the file is truncated"
                 )
+            more = _later_data_chunks(fh, body + csize + (csize & 1), size)
+            if more:
+                raise ChannelizerError(
+                    f"{path}: WAV file holds {more + 1} data chunks; only one would be read, so the file is "
+                    "refused: join its data chunks into one first"
+                )
             return fmt[0], fmt[1], body, csize
         pos = body + csize + (csize & 1)
+
+
+def _later_data_chunks(fh, pos, size):
+    """How many further ``data`` chunks follow ``pos`` (a walk over the chunk headers)."""
+    count = 0
+    while pos + 8 <= size:
+        fh.seek(pos)
+        chunk = fh.read(8)
+        if len(chunk) < 8:
+            break
+        csize = struct.unpack("<I", chunk[4:])[0]
+        count += chunk[:4] == b"data"
+        pos += 8 + csize + (csize & 1)
+    return count
 
 
 def _open_wav(path, opt_datatype, opt_rate, opt_center):

@@ -12,6 +12,7 @@ rate (Hogenauer 1981).
 """
 
 from dataclasses import dataclass
+from fractions import Fraction
 import math
 
 import numpy as np
@@ -62,6 +63,21 @@ def _fir_multiplies_per_output(stage, objective):
     return nz
 
 
+def exact_rate(value):
+    """A rate in Hz as the exact decimal its float prints as (``61.44e6`` is 61440000)."""
+    return Fraction(repr(float(value)))
+
+
+def multipliers_needed(multiplies_per_output, output_rate, clock):
+    """Hardware multipliers for both rails: ``ceil(2 x multiplies per second / clock)``.
+
+    Computed in exact rational arithmetic: a float product that lands at
+    1.0000000000000002 must not round up to a second multiplier.
+    """
+    need = 2 * Fraction(multiplies_per_output) * output_rate / clock
+    return math.ceil(need) if need else 0
+
+
 def chain_cost(stages, *, fs, objective="cpu", clock=None, input_bits=16, coefficient_bits=18):
     """Per-stage and total cost of a chain.
 
@@ -84,11 +100,13 @@ def chain_cost(stages, *, fs, objective="cpu", clock=None, input_bits=16, coeffi
     signals -- a tutorial review", Proc. IEEE 69(3):300-331, 1981: cost
     ``sum_i N_i F_i``.
     """
-    clock = fs if clock is None else clock
+    clock = exact_rate(fs if clock is None else clock)
     rates = chain_rates(stages, fs=fs)
+    exact = exact_rate(fs)
     out = []
     width = input_bits
     for st, rate in zip(stages, rates):
+        exact = exact * st.interpolation / st.decimation  # this stage's output rate, exactly
         if isinstance(st, CicStage):
             out_rate = rate / st.decimation
             adds = 2 * (st.order * rate + st.order * out_rate)
@@ -101,16 +119,16 @@ def chain_cost(stages, *, fs, objective="cpu", clock=None, input_bits=16, coeffi
         if isinstance(st, ResamplerStage):
             out_rate = rate * st.interpolation / st.decimation
             nz = _nonzero(st.taps)
-            per_out = nz / st.interpolation
+            per_out = Fraction(nz, st.interpolation)
             if objective == "hardware":
                 per_out = math.ceil(per_out / 2)
         else:
             out_rate = rate / st.decimation
             per_out = _fir_multiplies_per_output(st, objective)
             nz = _nonzero(st.taps)
-        mps = per_out * out_rate
+        mps = float(per_out) * out_rate
         adds = 2 * max(nz - 1, 0) * out_rate / (st.interpolation if isinstance(st, ResamplerStage) else 1)
         reg_bits = 2 * len(st.taps) * width + nz * coefficient_bits
-        mult = math.ceil(2 * mps / clock) if mps else 0
+        mult = multipliers_needed(per_out, exact, clock)
         out.append(StageCost(mps / fs, mps, adds, len(st.taps), reg_bits, mult))
     return ChainCost(tuple(out), objective)

@@ -18,6 +18,7 @@ import numpy as np
 import scipy.signal
 
 from ..errors import ChannelizerError
+from ..units import format_hz
 from .stages import CicStage, fir_response
 
 __all__ = [
@@ -218,7 +219,7 @@ def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=Fals
     else:
         bands = alias_bands(fs, decimation, protect)
         if not bands:
-            raise ChannelizerError(f"decimation {decimation} at {fs:g} Hz folds nothing onto the passband")
+            raise ChannelizerError(f"decimation {decimation} at {format_hz(fs, 'sps')} folds nothing onto the passband")
     if bands[0][0] <= fp:
         return None
     if full_stopband and stop_edge is None:

@@ -15,6 +15,7 @@ import yaml
 
 from ..errors import shown
 from ..errors import ChannelizerError
+from ..units import format_hz
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates, is_halfband
 
 __all__ = ["Plan", "PLAN_FORMAT", "MAX_PLAN_BYTES"]
@@ -157,7 +158,7 @@ class Plan:
         rate = chain_rates(stages, fs=input_rate)[-1]
         if not math.isclose(rate, output_rate, rel_tol=1e-9):
             raise ChannelizerError(
-                f"{source}: the stages take {input_rate:g} Hz to {rate:.9g} Hz, but output_rate says {output_rate:g}"
+                f"{source}: the stages take {format_hz(input_rate, 'sps')} to {format_hz(rate, 'sps', 9)}, but output_rate says {format_hz(output_rate, 'sps', 9)}"
             )
         predicted = data.get("predicted", {})
         if not isinstance(predicted, dict):

@@ -31,6 +31,7 @@ from .design import (
     herrmann_length,
 )
 from ..errors import ChannelizerError
+from ..units import format_hz
 from .hogenauer import cic_registers
 from .quantize import quantize_taps
 from .plan import Plan
@@ -210,7 +211,7 @@ def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
     for _ in range(h):
         hb = design_halfband(prot, fs=rate, delta=min(dp_stage, ds))
         if hb is None:
-            return None, f"no half-band serves a {2 * prot:g} Hz band at {rate:g} Hz"
+            return None, f"no half-band serves a {format_hz(2 * prot)} band at {format_hz(rate, 'sps')}"
         g = np.array(hb.taps)
         # exact unit DC gain with the centre tap kept at 0.5 and the zeros kept zero
         others = np.arange(len(g)) != len(g) // 2
@@ -251,9 +252,15 @@ def _targets(spec):
         if spec.stopband_edge is not None:
             # the output band must reach beyond the stopband edge
             d = min(d, int(math.ceil(fs / (2.0 * spec.stopband_edge))) - 1)
+            if d < 2 and default_decimation(fs, spec.bandwidth) >= 2:
+                raise ChannelizerError(
+                    f"stopband edge {spec.stopband_edge:g} Hz needs an output rate above {2 * spec.stopband_edge:g} Hz, "
+                    f"which leaves no decimation of {fs:g} Hz by 2 or more; move the edge below {fs / 4:g} Hz "
+                    "or give --output-rate"
+                )
         if d < 2:
             raise ChannelizerError(
-                f"bandwidth {spec.bandwidth:g} Hz leaves no room to decimate {fs:g} Hz "
+                f"bandwidth {format_hz(spec.bandwidth)} leaves no room to decimate {format_hz(fs, 'sps')} "
                 f"(the output must be at least {MIN_OVERSAMPLING} x the bandwidth); give --output-rate or a narrower channel"
             )
         return [(d, None, fs / d)]
@@ -269,7 +276,8 @@ def _targets(spec):
         options.append((up, -d_int, d_int, (up, down)))
     if not options:
         raise ChannelizerError(
-            f"output rate {spec.output_rate:g} Hz needs a resampling ratio beyond x{MAX_INTERPOLATION}; "
+            f"output rate {format_hz(spec.output_rate, 'sps', digits=12)} is no simple fraction of the input rate "
+            f"{format_hz(fs, 'sps', digits=12)}: reaching it exactly needs interpolation by more than {MAX_INTERPOLATION}; "
             "choose an output rate that is a simpler fraction of the input rate"
         )
     options.sort()
@@ -311,7 +319,7 @@ def plan_chain(spec):
                 candidates.append((est, layout, resampler, dp_stage, d_int))
     if not candidates:
         raise ChannelizerError(
-            f"no chain can take {fs:g} Hz to a {spec.bandwidth:g} Hz channel; widen the output rate"
+            f"no chain can take {format_hz(fs, 'sps')} to a {format_hz(spec.bandwidth)} channel; widen the output rate"
         )
     candidates.sort(key=lambda t: t[0])
     tried = []
@@ -343,6 +351,8 @@ def plan_chain(spec):
             best_cost = min(best_cost, cand.cost.total.multiplies_per_input_sample)
     good = sorted((c for c in tried if c.meets), key=lambda c: c.cost.key())
     if not good:
+        if spec.objective == "hardware":
+            _refuse_for_coefficient_width(spec)
         worst = "; ".join(f"{c.layout}: {c.reason}" for c in tried[:3])
         raise ChannelizerError(
             f"no chain met ripple {spec.ripple_db:g} dB and rejection {spec.rejection_db:g} dB ({worst}); "
@@ -353,12 +363,42 @@ def plan_chain(spec):
     for c in good[1:]:
         extra = c.cost.total.multiplies_per_input_sample - best.cost.total.multiplies_per_input_sample
         if spec.objective == "hardware":
-            c.reason = f"needs {c.cost.total.multipliers - best.cost.total.multipliers} more multipliers"
+            more = c.cost.total.multipliers - best.cost.total.multipliers
+            c.reason = f"needs {more} more multiplier{'s' if more != 1 else ''}"
         else:
             c.reason = f"costs {extra:.3g} more multiplies per input sample"
     alternatives = good[1:] + failed
     plan = _to_plan(best, spec)
     return PlanResult(plan, best, alternatives)
+
+
+def _refuse_for_coefficient_width(spec):
+    """Raise naming the coefficient width when that, not the layout, is the limit.
+
+    Plans the same spec with unquantised taps; when that chain meets it, its taps
+    are rounded to widening coefficient widths until one meets the spec too.
+    """
+    try:
+        unquantised = plan_chain(replace(spec, objective="cpu"))
+    except ChannelizerError:
+        return
+    stages = unquantised.plan.stages
+    reached = None
+    for bits in range(spec.coefficient_bits, 33):
+        q = [s if isinstance(s, CicStage) else _quantize(s, bits) for s in stages]
+        pred = predict(q, fs=spec.input_rate, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge)
+        if bits == spec.coefficient_bits:
+            reached = pred
+        if not _shortfall(pred, spec):
+            break
+    else:
+        return
+    raise ChannelizerError(
+        f"no chain met ripple {spec.ripple_db:g} dB and rejection {spec.rejection_db:g} dB with "
+        f"{spec.coefficient_bits}-bit coefficients: {unquantised.chosen.layout} meets it with exact taps, "
+        f"rounded to {spec.coefficient_bits} bits it reaches ripple {reached.passband_ripple_db:.4f} dB, "
+        f"rejection {reached.alias_rejection_db:.1f} dB; use --coefficient-bits {bits} or relax the targets"
+    )
 
 
 def _shortfall(pred, spec):

@@ -15,7 +15,7 @@ import numpy as np
 
 from .stages import ResamplerStage, chain_rates
 
-__all__ = ["composite_response", "alias_intervals", "landing_intervals", "resampler_of", "image_step", "Prediction", "predict", "fold"]
+__all__ = ["composite_response", "normalised_response", "impulse_seconds", "alias_intervals", "landing_intervals", "path_of", "resampler_of", "image_step", "Prediction", "predict", "fold"]
 
 
 def fold(f, fs):
@@ -50,6 +50,33 @@ def composite_response(stages, f, *, fs, image=0):
             shift = image * rate
         h = h * st.response(f + shift, fs=rate)
     return h
+
+
+def normalised_response(stages, f, *, fs, image=0):
+    """The composite response over the rational stage's interpolation factor L.
+
+    A rational stage's filter has gain L (it follows L-1 inserted zeros), so the
+    composite of a plan with one has DC gain L; divided by L, every path reads in
+    the units of the chain's output (unit gain at DC).  Every figure shown to a
+    user (predictions, verify, the alias audit, the plots) uses this one.
+
+    References
+    ----------
+    A. V. Oppenheim and R. W. Schafer, *Discrete-Time Signal Processing*, 3rd ed.,
+    2010, sec. 4.6.2 (interpolation filter of gain L).
+    """
+    res, _ = resampler_of(stages, fs=fs)
+    up = res.interpolation if res is not None else 1
+    return composite_response(stages, f, fs=fs, image=image) / up
+
+
+def impulse_seconds(stages, *, fs):
+    """Length of the chain's impulse response in seconds (every stage's taps at their own rate)."""
+    total = 0.0
+    for st, rate in zip(stages, chain_rates(stages, fs=fs)):
+        tap_rate = rate * st.interpolation if isinstance(st, ResamplerStage) else rate
+        total += (st.num_taps - 1) / tap_rate
+    return total
 
 
 def resampler_of(stages, *, fs):
@@ -111,6 +138,19 @@ def landing_intervals(stages, *, fs, lo, hi):
     return _intervals(stages, fs, [(lo, hi), (-hi, -lo)], skip_direct=False)
 
 
+def path_of(stages, f, *, fs, bandwidth):
+    """The path that carries input frequency ``f`` onto the passband: 0 for an alias
+    (or the direct path), ``k > 0`` for image path ``k`` of the rational stage.
+
+    A frequency inside the passband can reach it again only as an image; outside it,
+    the direct path's alias is named first when both apply.
+    """
+    ks = sorted(k for lo, hi, k in alias_intervals(stages, fs=fs, bandwidth=bandwidth) if lo <= f <= hi)
+    if abs(f) <= bandwidth / 2.0:
+        ks = [k for k in ks if k > 0]
+    return ks[0] if ks else 0
+
+
 @dataclass(frozen=True)
 class Prediction:
     """Figures computed from a chain's composite response.
@@ -125,7 +165,7 @@ class Prediction:
     worst_alias_hz : float
         Input frequency (offset from the centre) where that minimum occurs.
     passband_gain_db : float
-        Gain at DC.
+        Gain at DC of the normalised response (:func:`normalised_response`).
     adjacent_rejection_db : float or None
         With a stopband edge: the smallest attenuation of anything that lands
         beyond the edge in the output band (the neighbours, direct or folded).
@@ -151,12 +191,12 @@ def _worst(stages, intervals, fs, dc, points_per_band, refine=4, refine_points=2
         by_image.setdefault(k, []).append((lo, hi))
     for k, bands in by_image.items():
         f = np.concatenate([_grid(lo, hi, points_per_band) for lo, hi in bands])
-        att = -20.0 * np.log10(np.maximum(np.abs(composite_response(stages, f, fs=fs, image=k)), 1e-300) / dc)
+        att = -20.0 * np.log10(np.maximum(np.abs(normalised_response(stages, f, fs=fs, image=k)), 1e-300) / dc)
         per_band = att.reshape(len(bands), points_per_band).min(axis=1)
         for b in np.argsort(per_band)[:refine]:
             lo, hi = bands[b]
             fine = _grid(lo, hi, refine_points)
-            a = -20.0 * np.log10(np.maximum(np.abs(composite_response(stages, fine, fs=fs, image=k)), 1e-300) / dc)
+            a = -20.0 * np.log10(np.maximum(np.abs(normalised_response(stages, fine, fs=fs, image=k)), 1e-300) / dc)
             i = int(np.argmin(a))
             if a[i] < att.min():
                 att = np.append(att, a[i])
@@ -175,10 +215,10 @@ def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24):
     computed too.
     """
     fp = bandwidth / 2.0
-    dc = abs(composite_response(stages, np.array([0.0]), fs=fs)[0])
+    dc = abs(normalised_response(stages, np.array([0.0]), fs=fs)[0])
     pb = _grid(0.0, fp, 257)
     pb = np.concatenate([-pb[::-1], pb])
-    mag_pb = np.abs(composite_response(stages, pb, fs=fs))
+    mag_pb = np.abs(normalised_response(stages, pb, fs=fs))
     ripple = 20.0 * np.log10(mag_pb.max() / mag_pb.min())
     intervals = alias_intervals(stages, fs=fs, bandwidth=bandwidth)
     worst_db, worst_f = _worst(stages, intervals, fs, dc, points_per_band)

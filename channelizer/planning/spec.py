@@ -5,6 +5,7 @@ import math
 import typing
 
 from ..errors import ChannelizerError
+from ..units import format_hz
 
 __all__ = ["ChainSpec", "Objective", "ripple_to_delta", "delta_to_ripple"]
 
@@ -85,27 +86,28 @@ class ChainSpec:
             positive("stopband edge", self.stopband_edge)
             if self.stopband_edge <= self.bandwidth / 2:
                 raise ChannelizerError(
-                    f"stopband edge {self.stopband_edge:g} Hz must lie beyond the passband edge {self.bandwidth / 2:g} Hz"
+                    f"stopband edge {format_hz(self.stopband_edge)} must lie beyond the passband edge {format_hz(self.bandwidth / 2)}"
                 )
+            which = "output" if self.output_rate else "input"
             top = (self.output_rate or self.input_rate) / 2
             if self.stopband_edge >= top:
                 raise ChannelizerError(
-                    f"stopband edge {self.stopband_edge:g} Hz must lie below half the output rate ({top:g} Hz)"
+                    f"stopband edge {format_hz(self.stopband_edge)} must lie below half the {which} rate ({format_hz(top)})"
                 )
         if self.bandwidth >= self.input_rate:
             raise ChannelizerError(
-                f"bandwidth {self.bandwidth:g} Hz must be below the input rate {self.input_rate:g} Hz; "
+                f"bandwidth {format_hz(self.bandwidth)} must be below the input rate {format_hz(self.input_rate, 'sps')}; "
                 "ask for a narrower channel or a faster capture"
             )
         if self.output_rate is not None:
             if self.output_rate <= self.bandwidth:
                 raise ChannelizerError(
-                    f"output rate {self.output_rate:g} Hz must exceed the bandwidth {self.bandwidth:g} Hz "
+                    f"output rate {format_hz(self.output_rate, 'sps')} must exceed the bandwidth {format_hz(self.bandwidth)} "
                     "(complex samples: the rate is the usable width); raise the output rate or narrow the channel"
                 )
             if self.output_rate > self.input_rate:
                 raise ChannelizerError(
-                    f"output rate {self.output_rate:g} Hz is above the input rate {self.input_rate:g} Hz; "
+                    f"output rate {format_hz(self.output_rate, 'sps')} is above the input rate {format_hz(self.input_rate, 'sps')}; "
                     "this tool only decimates"
                 )
         for name in ("ripple_db", "rejection_db"):

@@ -10,6 +10,7 @@ from ..io.channels import resolve_offset
 from ..errors import ChannelizerError
 from ..planning.plan import MAX_PLAN_BYTES, Plan
 from ..io.atomic import FileSet
+from ..units import format_hz
 from .processor import ChannelRequest, extract_channels, plan_identity, write_summary
 
 __all__ = ["load_plan_file", "run_extraction"]
@@ -42,6 +43,8 @@ def run_extraction(
     nonfinite="error",
     block_size=None,
     audit=True,
+    trim_settling=False,
+    audit_resolution=None,
     workers=None,
     scheduler=None,
 ):
@@ -50,9 +53,10 @@ def run_extraction(
     A channel's own plan path (from a channel list) is read relative to
     ``base_dir``; otherwise ``plan_path`` serves.  Returns the ExtractResult, with
     ``summary.json`` written and, unless ``plots`` is false, ``overview.png`` and
-    one ``NAME.png`` per channel.  ``workers`` (a local cluster of that many
-    processes) or ``scheduler`` (a running cluster's address) runs the pass on
-    dask.distributed (:mod:`channelizer.run.distributed`), with the same outputs.
+    one ``NAME.png`` per channel; ``result.warnings`` holds a line per channel whose
+    listed bandwidth is wider than its plan's passband.  ``workers`` (a local cluster
+    of that many processes) or ``scheduler`` (a running cluster's address) runs the
+    pass on dask.distributed (:mod:`channelizer.run.distributed`), with the same outputs.
     """
     if workers is not None or scheduler is not None:
         from .distributed import check_cluster_options
@@ -60,6 +64,7 @@ def run_extraction(
         check_cluster_options(workers, scheduler)
     plans = {}
     requests = []
+    warnings = []
     for e in entries:
         path = plan_path if e.plan is None else os.path.join(base_dir, e.plan)
         if path is None:
@@ -67,8 +72,16 @@ def run_extraction(
         if path not in plans:
             plans[path] = load_plan_file(path)
         plan, ident = plans[path]
-        requests.append(ChannelRequest(e.name, resolve_offset(e, capture.center_frequency), plan, ident, path))
+        if e.bandwidth is not None and e.bandwidth > plan.bandwidth * (1 + 1e-9):
+            warnings.append(
+                f"channel {e.name}: listed bandwidth {format_hz(e.bandwidth)} is wider than the passband of its plan "
+                f"{os.path.basename(path)} ({format_hz(plan.bandwidth)}); its edges will be cut"
+            )
+        requests.append(ChannelRequest(e.name, _offset(e, capture), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
+    kw["trim_settling"] = trim_settling
+    if audit_resolution is not None:
+        kw["audit_resolution"] = audit_resolution
     if workers is not None or scheduler is not None:
         from .distributed import distributed_runner
 
@@ -80,9 +93,25 @@ def run_extraction(
     except BaseException:
         files.abort()
         raise
+    result.warnings = warnings
     if plots:
         _plot(result, requests, capture, out_dir)
     return result
+
+
+def _offset(entry, capture):
+    """The entry's offset from the centre; an absolute frequency far outside the band that
+    would fit as an offset is refused with the offset spelled out."""
+    offset = resolve_offset(entry, capture.center_frequency)
+    half = capture.sample_rate / 2
+    if not entry.is_offset and capture.center_frequency is not None and abs(offset) > half >= abs(entry.frequency):
+        short = format_hz(entry.frequency, signed=True).replace(" ", "").removesuffix("Hz")
+        raise ChannelizerError(
+            f"channel {entry.name}: {format_hz(entry.frequency)} is read as an absolute frequency, outside the captured "
+            f"band {format_hz(capture.center_frequency - half)} to {format_hz(capture.center_frequency + half)}; "
+            f"for an offset from the centre write {entry.name}={short}"
+        )
+    return offset
 
 
 def _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw):
@@ -118,6 +147,12 @@ def _plot(result, requests, capture, out_dir):
             [(r.name, center + r.offset, r.plan.bandwidth) for r in requests],
             os.path.join(out_dir, "overview.png"),
         )
+    noise = None
+    if result.overview is not None:
+        from ..dsp.detection import estimate_noise_floor
+
+        level = estimate_noise_floor(result.overview)
+        noise = 10.0 * math.log10(level) if level > 0 else None
     for req, ch in zip(requests, result.channels):
         if ch.spectrum is None:
             continue
@@ -129,6 +164,8 @@ def _plot(result, requests, capture, out_dir):
             alias_floor_dbfs_per_hz=floor,
             audit=ch.alias_audit,
             path=os.path.join(out_dir, f"{ch.name}.png"),
+            rejection_db=req.plan.predicted.get("alias_rejection_db"),
+            noise_floor_dbfs_per_hz=noise,
         )
 
 

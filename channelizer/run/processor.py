@@ -20,10 +20,13 @@ import numpy as np
 from ..io.atomic import FileSet, write_text_atomic
 from ..errors import ChannelizerError
 from ..io.names import safe_output_name
-from ..dsp.spectrum import WelchAccumulator
+from ..dsp.spectrum import WelchAccumulator, _segment_length
 from ..dsp.spaced_welch import SpacedWelch
+from ..planning.response import impulse_seconds
 from ..planning.stages import chain_rates
 from ..io.progress import ProgressBar
+from ..units import format_hz
+from .timing import channel_timing
 
 __all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples"]
 
@@ -71,8 +74,11 @@ class ChannelResult:
     plan_id: str
     files: list
     clipped: int = 0
+    peak: float = 0.0  # largest |I| or |Q| at the output, full scale 1
+    settled_from: int = 0  # output sample the mean power starts at (the chain's length)
     spectrum: object = None
     alias_audit: list = field(default_factory=list)
+    timing: object = None
 
 
 @dataclass
@@ -83,6 +89,7 @@ class ExtractResult:
     seconds: float
     overview: object = None
     summary_path: str = ""
+    warnings: list = field(default_factory=list)
 
 
 def chain_delay_output_samples(stages, *, fs):
@@ -98,17 +105,19 @@ def check_channel(capture, req):
     fs = capture.sample_rate
     if not math.isclose(fs, plan.input_rate, rel_tol=1e-9):
         raise ChannelizerError(
-            f"channel {req.name}: the capture {capture.path} runs at {fs:g} Hz but its plan"
-            f"{' ' + str(req.plan_source) if req.plan_source else ''} expects {plan.input_rate:g} Hz"
+            f"channel {req.name}: the capture {capture.path} runs at {format_hz(fs, 'sps')} but its plan"
+            f"{' ' + str(req.plan_source) if req.plan_source else ''} expects {format_hz(plan.input_rate, 'sps')}"
         )
     half = plan.bandwidth / 2.0
     if abs(req.offset) + half > fs / 2.0:
         where = capture.center_frequency
         span = (
-            f"{where - fs / 2:g} to {where + fs / 2:g} Hz" if where is not None else f"{-fs / 2:g} to {fs / 2:g} Hz offset"
+            f"{format_hz(where - fs / 2)} to {format_hz(where + fs / 2)}"
+            if where is not None
+            else f"{format_hz(-fs / 2)} to {format_hz(fs / 2, signed=True)} offset"
         )
         raise ChannelizerError(
-            f"channel {req.name}: passband {req.offset - half:+g} to {req.offset + half:+g} Hz from centre "
+            f"channel {req.name}: passband {format_hz(req.offset - half, signed=True)} to {format_hz(req.offset + half, signed=True)} from centre "
             f"leaves the captured band ({span})"
         )
 
@@ -144,6 +153,8 @@ def extract_channels(
     progress=False,
     spectra=True,
     fileset=None,
+    trim_settling=False,
+    audit_resolution=None,
     runner=None,
 ):
     """Extract every requested channel from ``capture`` in one pass.
@@ -171,6 +182,12 @@ def extract_channels(
         Leave the recordings uncommitted in this set (the caller adds the summary
         and commits, so that all outputs of a run appear together); by default
         they are committed here once every channel is complete.
+    trim_settling : bool
+        Leave out each channel's start-up samples (see :mod:`channelizer.run.timing`);
+        otherwise they are written and marked by an annotation.
+    audit_resolution : float, optional
+        Bin spacing in Hz of the input spectrum the alias audit reads; by default
+        chosen from the channels' bandwidths (:func:`channelizer.checks.alias_audit.audit_resolution`).
     runner : callable, optional
         ``runner(pass_, out_dir, files, output_format=..., nonfinite=...,
         progress=...)`` does the reading and writing in place of this process
@@ -195,7 +212,9 @@ def extract_channels(
         from .chunks import aligned_block_size
 
         block_size = aligned_block_size([r.plan.stages for r in requests], DEFAULT_BLOCK)
-    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra)
+    one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
+                audit_resolution=audit_resolution)
+    one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
     own_set = fileset is None
     files = FileSet() if own_set else fileset
     t0 = time.perf_counter()
@@ -214,7 +233,8 @@ def extract_channels(
 class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
-    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, start_index=0):
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None,
+                 start_index=0):
         self.capture, self.requests, self.names = capture, requests, names
         self.bit_true, self.block_size = bit_true, block_size
         fs = capture.sample_rate
@@ -229,9 +249,14 @@ class _Pass:
 
             self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs, start_index=start_index)
         n_total = capture.num_samples
-        # a fixed budget of segments spread over the file: the audit's resolution at a
+        if audit_resolution is None:
+            from ..checks.alias_audit import audit_resolution as default_resolution
+
+            audit_resolution = default_resolution([r.plan.bandwidth for r in requests], fs=fs, samples=n_total)
+        # a fixed budget of contiguous segments spread over the file: the audit's resolution at a
         # fraction of the chain's cost however long the capture (see dsp/spaced_welch.py)
-        self.overview = SpacedWelch(fs=fs, nperseg=4096, total=n_total, center_frequency=centre) if spectra else None
+        nperseg = _segment_length(fs, audit_resolution, None)
+        self.overview = SpacedWelch(fs=fs, nperseg=nperseg, total=n_total, center_frequency=centre) if spectra else None
         self.out_spectra = []
         for r in requests:
             n_out = int(n_total * r.plan.output_rate / fs)
@@ -240,8 +265,11 @@ class _Pass:
             self.out_spectra.append(
                 WelchAccumulator(fs=r.plan.output_rate, nperseg=nper, center_frequency=centre + r.offset) if ok else None
             )
-        self.power = [0.0] * len(requests)
+        self.power = [0.0] * len(requests)  # over the settled outputs
         self.count = [0] * len(requests)
+        # the mean power skips the chain's start-up: its impulse response length in outputs
+        self.settle = [int(math.ceil(impulse_seconds(r.plan.stages, fs=fs) * r.plan.output_rate)) for r in requests]
+        self.peak = [0.0] * len(requests)
         self.writers = []
 
     def _outputs(self, i, block):
@@ -270,7 +298,8 @@ class _Pass:
 
         cap = self.capture
         centre = cap.center_frequency
-        for r, name in zip(self.requests, self.names):
+        self._skip = [t.skipped for t in self.timing]
+        for r, name, timing in zip(self.requests, self.names, self.timing):
             meta_global = {
                 "core:description": f"channel {name} extracted by channelizer",
                 "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
@@ -287,16 +316,23 @@ class _Pass:
                 fs=r.plan.output_rate,
                 center_frequency=None if centre is None else centre + r.offset,
                 global_extra=meta_global,
+                capture_extra=timing.capture_fields(cap.start_datetime),
+                annotations=timing.annotations(),
                 fileset=files,
             )
             self.writers.append(stack.enter_context(w))
 
     def take(self, k, y):
         """Write channel ``k``'s next output samples and add them to its figures."""
+        if self._skip[k]:  # start-up samples left out (--trim-settling)
+            cut = min(self._skip[k], y.size)
+            y, self._skip[k] = y[cut:], self._skip[k] - cut
         if y.size:
             self.writers[k].write(y)
-            self.power[k] += float(np.vdot(y, y).real)
+            settled = y[max(0, self.settle[k] - self.count[k]):]
+            self.power[k] += float(np.vdot(settled, settled).real)
             self.count[k] += y.size
+            self.peak[k] = max(self.peak[k], float(np.abs(y.view(y.real.dtype)).max()))
             if self.out_spectra[k] is not None:
                 self.out_spectra[k].update(y)
 
@@ -324,6 +360,7 @@ class _Pass:
         results = []
         for k, (r, name, w) in enumerate(zip(self.requests, self.names, self.writers)):
             spec = self.out_spectra[k]
+            n_settled = self.count[k] - self.settle[k]
             results.append(
                 ChannelResult(
                     name=name,
@@ -331,12 +368,15 @@ class _Pass:
                     center_frequency=None if centre is None else float(centre + r.offset),
                     output_rate=float(r.plan.output_rate),
                     samples=int(self.count[k]),
-                    mean_power_dbfs=_dbfs(self.power[k] / self.count[k]) if self.count[k] else -math.inf,
+                    mean_power_dbfs=_dbfs(self.power[k] / n_settled) if n_settled > 0 else math.nan,
                     group_delay_output_samples=chain_delay_output_samples(r.plan.stages, fs=fs),
                     plan_id=r.plan_id,
                     files=[os.path.basename(w.data_path), os.path.basename(w.meta_path)],
                     clipped=int(w.clipped),
+                    peak=self.peak[k],
+                    settled_from=self.settle[k],
                     spectrum=spec.result() if spec is not None and spec.segments else None,
+                    timing=self.timing[k],
                 )
             )
         ov = self.overview.result() if self.overview is not None and self.overview.segments else None
@@ -348,6 +388,7 @@ def write_summary(result, out_dir, *, extra=None, fileset=None):
     cap = result.capture
     doc = {
         "capture": os.path.basename(cap.path),
+        "audit_resolution_hz": None if result.overview is None else result.overview.bin_hz,
         "sample_rate": cap.sample_rate,
         "center_frequency": cap.center_frequency,
         "input_samples": result.input_samples,
@@ -363,8 +404,12 @@ def write_summary(result, out_dir, *, extra=None, fileset=None):
                 "group_delay_output_samples": round(c.group_delay_output_samples, 6),
                 "plan_sha256": c.plan_id,
                 "files": c.files,
+                "power_from_sample": c.settled_from,
                 "clipped_samples": c.clipped,
+                "peak_component": round(c.peak, 6),
                 "alias_audit": c.alias_audit,
+                **({} if c.timing is None else {
+                    "settling_samples": c.timing.settling, "settling_trimmed": c.timing.skipped > 0}),
             }
             for c in result.channels
         ],

@@ -4,8 +4,9 @@ import math
 
 import numpy as np
 
-from ..planning.response import alias_intervals, composite_response, fold, image_step
+from ..planning.response import alias_intervals, normalised_response
 from ..planning.stages import chain_rates
+from ..units import format_hz
 from .table import stage_rows
 
 __all__ = ["plot_plan", "new_figure", "save_figure"]
@@ -47,30 +48,34 @@ def _db(x, floor=-250.0):
 def plot_plan(plan, path, *, title=None):
     """Write the plan's response figure to ``path`` (PNG).
 
-    Panel (a): each stage's response and the composite over the input band, with
-    the bands that fold onto the passband shaded.  Panel (b): every alias image
-    folded onto the output band and overlaid, with the rejection target.
+    Panel (a): the composite response over the input band (drawn densely: the
+    highest and lowest level within each pixel column), each stage over its own
+    input band, the bands that fold onto the passband as a strip along the bottom,
+    and an inset around the channel where those bands are shaded.  Panel (b): the
+    worst folded level over all bands at each output frequency of the passband
+    (see :mod:`channelizer.views.plan_panels`), with the worst band on its own.
     """
+    from .plan_panels import alias_envelope
+
     fs = plan.input_rate
     fp = plan.bandwidth / 2.0
+    fs_out = plan.output_rate
     target = plan.spec["rejection_db"]
-    fig, axes = new_figure(2, 1, size=(11, 8.5))
+    fig, axes = new_figure(2, 1, size=(11, 9))
     ax, bx = axes[0, 0], axes[1, 0]
-
-    f = np.linspace(-fs / 2.0, fs / 2.0, 8001)
+    ylo = -(target + 40.0)
     intervals = alias_intervals(plan.stages, fs=fs, bandwidth=plan.bandwidth)
-    f = np.unique(np.concatenate([f, [lo for lo, _, _ in intervals], [hi for _, hi, _ in intervals], [-fp, fp, 0.0]]))
+
     rates = chain_rates(plan.stages, fs=fs)
     rows, _ = stage_rows(plan)
     for st, rate, row in zip(plan.stages, rates, rows):
-        ax.plot(f, _db(st.response(f, fs=rate)), lw=0.6, alpha=0.45, label=f"{row['stage']}: {row['kind']} {row['ratio']}")
-    h = composite_response(plan.stages, f, fs=fs)
-    ax.plot(f, _db(h), color="black", lw=1.4, label="composite")
-    mask = np.zeros(f.shape, dtype=bool)
-    for lo, hi, _ in intervals:
-        mask |= (f >= lo) & (f <= hi)
-    ylo = -(target + 40.0)
-    ax.fill_between(f, ylo, 10, where=mask, color="tab:red", alpha=0.15, lw=0, label="folds onto passband")
+        g = np.linspace(-rate / 2.0, rate / 2.0, 4001)  # a stage only sees its own input band
+        # a rational stage's filter has gain L: drawn over L, like the composite
+        ax.plot(g, _db(st.response(g, fs=rate) / st.interpolation), lw=0.7, alpha=0.5, label=f"{row['stage']}: {row['kind']} {row['ratio']} (over its input band)")
+    fc, hi_db, lo_db = _composite_columns(plan, -fs / 2.0, fs / 2.0)
+    ax.fill_between(fc, np.maximum(lo_db, ylo), np.maximum(hi_db, ylo), color="black", lw=0.8, label="composite")
+    ax.hlines(np.full(len(intervals), ylo + 2.0), [lo for lo, _, _ in intervals], [hi for _, hi, _ in intervals],
+              color="tab:red", lw=6, label=f"{len(intervals)} bands that fold onto the passband")
     ax.axhline(-target, color="tab:red", ls="--", lw=1, label=f"target -{target:g} dB")
     ax.set_ylim(ylo, 10)
     ax.set_xlim(-fs / 2.0, fs / 2.0)
@@ -78,44 +83,67 @@ def plot_plan(plan, path, *, title=None):
     ax.set_xlabel("input frequency offset from centre")
     _hz_axis(ax)
     ax.grid(alpha=0.3)
-    ax.legend(loc="lower left", fontsize=8, ncol=2)
-    ax.set_title(title or f"(a) stage and composite response, {fs / 1e6:g} Msps in, {plan.output_rate / 1e3:g} ksps out")
+    ax.legend(loc="upper left", fontsize=8)
+    ax.set_title(title or f"(a) stage and composite response, {format_hz(fs, 'sps')} in, {format_hz(fs_out, 'sps')} out")
+    _zoom_inset(ax, plan, intervals, target, ylo)
 
-    fs_out = plan.output_rate
-    xs, ys = [], []
-    step = image_step(plan.stages, fs=fs)
-    for k in sorted({k for _, _, k in intervals}):
-        bands = [(lo, hi) for lo, hi, kk in intervals if kk == k]
-        x = np.concatenate([np.append(np.linspace(lo, hi, 48), np.nan) for lo, hi in bands])
-        att = _db(composite_response(plan.stages, np.nan_to_num(x), fs=fs, image=k))
-        land = fold(x + k * step, fs_out)
-        # a band straddling the output band's edge would draw across it: break the line there
-        jump = np.abs(np.diff(land, prepend=land[:1])) > fs_out / 2
-        land[jump] = np.nan
-        xs.append(land)
-        ys.append(np.where(np.isnan(x), np.nan, att))
-    if xs:
-        bx.plot(np.concatenate(xs), np.concatenate(ys), color="tab:blue", lw=0.6, alpha=0.5)
-    worst = plan.predicted.get("alias_rejection_db", float("nan"))
-    pb = np.linspace(-fs_out / 2, fs_out / 2, 1201)
-    bx.plot(pb, _db(composite_response(plan.stages, pb, fs=fs)), color="black", lw=1.4, label="direct path (no folding)")
-    bx.plot([], [], color="tab:blue", lw=0.8, label=f"{len(intervals)} folded alias bands")
+    env = alias_envelope(plan)
+    pb = np.linspace(-fs_out / 2, fs_out / 2, 2001)
+    bx.plot(pb, _db(normalised_response(plan.stages, pb, fs=fs)), color="black", lw=1.4, label="direct path (no folding)")
+    bx.plot(env.freqs, env.level_db, color="tab:blue", lw=1.4, label=f"worst of {env.bands} folded bands")
+    if env.worst_band is not None:
+        lo, hi, _ = env.worst_band
+        bx.plot(env.freqs, env.worst_db, color="tab:red", lw=1.0, label=f"worst band: input {format_hz(lo, signed=True)} to {format_hz(hi, signed=True)}")
     bx.axhline(-target, color="tab:red", ls="--", lw=1, label=f"target -{target:g} dB")
     bx.axvspan(-fp, fp, color="tab:green", alpha=0.08, label="passband")
     edge = plan.spec.get("stopband_edge")
     if edge:
         for e in (-edge, edge):
             bx.axvline(e, color="tab:purple", ls="-.", lw=1)
-        bx.plot([], [], color="tab:purple", ls="-.", label=f"stopband edge +-{edge / 1e3:g} kHz")
+        bx.plot([], [], color="tab:purple", ls="-.", label=f"stopband edge +-{format_hz(edge)}")
+    worst = plan.predicted.get("alias_rejection_db", float("nan"))
     bx.set_xlim(-fs_out / 2, fs_out / 2)
     bx.set_ylim(-(target + 60.0), 5)
     bx.set_xlabel("output frequency (offset from channel centre)")
     bx.set_ylabel("level relative to passband (dB)")
     _hz_axis(bx)
     bx.grid(alpha=0.3)
-    bx.legend(loc="lower left", fontsize=8)
+    bx.legend(loc="upper left", fontsize=8)
     bx.set_title(f"(b) folded view: worst alias {worst:.1f} dB below the channel")
     save_figure(fig, path)
+
+
+def _composite_columns(plan, lo, hi, columns=1600):
+    """The composite response from ``lo`` to ``hi`` Hz, sampled densely and reduced per pixel column."""
+    from .plan_panels import peak_envelope
+
+    per = max(8, min(256, int(16 * plan.input_rate / plan.output_rate * (hi - lo) / plan.input_rate)))
+    f = np.linspace(lo, hi, columns * per)
+    return peak_envelope(f, _db(normalised_response(plan.stages, f, fs=plan.input_rate)), columns)
+
+
+def _zoom_inset(ax, plan, intervals, target, ylo):
+    """An inset around the channel: the composite and the folding bands within three output rates."""
+    span = min(3.0 * plan.output_rate, plan.input_rate / 2.0)
+    if span >= plan.input_rate / 2.0 * 0.5:
+        return  # the main axis already shows this well
+    from matplotlib.ticker import MaxNLocator
+
+    ins = ax.inset_axes([0.63, 0.4, 0.355, 0.48])
+    fc, hi_db, lo_db = _composite_columns(plan, -span, span, columns=600)
+    ins.fill_between(fc, np.maximum(lo_db, ylo), np.maximum(hi_db, ylo), color="black", lw=0.8)
+    for lo, hi, _ in intervals:
+        if hi > -span and lo < span:
+            ins.axvspan(max(lo, -span), min(hi, span), color="tab:red", alpha=0.18, lw=0)
+    ins.axvspan(-plan.bandwidth / 2.0, plan.bandwidth / 2.0, color="tab:green", alpha=0.15, lw=0)
+    ins.axhline(-target, color="tab:red", ls="--", lw=1)
+    ins.set_xlim(-span, span)
+    ins.set_ylim(ylo, 10)
+    ins.tick_params(labelsize=7)
+    _hz_axis(ins)
+    ins.xaxis.set_major_locator(MaxNLocator(5))
+    ins.set_title("near the channel: passband green, folding bands red", fontsize=8)
+    ins.grid(alpha=0.3)
 
 
 def plot_overview(psd, channels, path, *, title=None):
@@ -134,17 +162,23 @@ def plot_overview(psd, channels, path, *, title=None):
     ax.set_ylabel("PSD (dBFS/Hz)")
     _hz_axis(ax)
     ax.grid(alpha=0.3)
-    ax.set_title(title or f"input spectrum (Welch, {psd.window} window, {psd.bin_hz:.4g} Hz bins) and extracted channels")
+    ax.set_title(title or f"input spectrum (Welch, {psd.window} window, {format_hz(psd.bin_hz, digits=4)} bins) and extracted channels")
     save_figure(fig, path)
 
 
-def plot_channel(psd, *, name, bandwidth, alias_floor_dbfs_per_hz=None, audit=(), path, title=None):
+def plot_channel(
+    psd, *, name, bandwidth, alias_floor_dbfs_per_hz=None, audit=(), path, title=None, rejection_db=None, noise_floor_dbfs_per_hz=None
+):
     """One output's spectrum with its passband edges and the predicted alias floor.
 
     ``audit``: folded signals as dicts with ``landing_offset_hz`` and
-    ``output_level_dbfs_per_hz`` drawn as markers.
+    ``output_level_dbfs_per_hz`` drawn as markers.  The level axis stops 10 dB
+    under ``noise_floor_dbfs_per_hz`` (the capture's noise floor; by default the
+    output's) less ``rejection_db`` (the plan's rejection; 60 dB when not given),
+    where the chain leaves the rejected noise: what lies further down is drawn on
+    the axis's lower edge, marked as below it.  The legend sits beside the axes, never over the data.
     """
-    fig, axes = new_figure(1, 1, size=(10, 5))
+    fig, axes = new_figure(1, 1, size=(12, 5))
     ax = axes[0, 0]
     f = psd.freqs - psd.center_frequency
     ax.plot(f, psd.dbfs_per_hz(), lw=0.8, color="tab:blue", label="output spectrum")
@@ -153,12 +187,36 @@ def plot_channel(psd, *, name, bandwidth, alias_floor_dbfs_per_hz=None, audit=()
     ax.axvspan(-bandwidth / 2, bandwidth / 2, color="tab:green", alpha=0.06, label="passband")
     if alias_floor_dbfs_per_hz is not None and math.isfinite(alias_floor_dbfs_per_hz):
         ax.axhline(alias_floor_dbfs_per_hz, color="tab:red", ls=":", lw=1.2, label="predicted alias floor")
+    bottom, top = _channel_levels(psd, rejection_db, noise_floor_dbfs_per_hz)
+    below = False
     for i, a in enumerate(audit):
-        ax.plot([a["landing_offset_hz"]], [a["output_level_dbfs_per_hz"]], marker="v", color="tab:red" if a.get("above_noise") else "tab:orange", ls="none", label="folded signal (predicted)" if i == 0 else None)
+        level = a["output_level_dbfs_per_hz"]
+        below |= level < bottom
+        ax.plot([a["landing_offset_hz"]], [max(level, bottom + 1.0)], marker="v", color="tab:red" if a.get("above_noise") else "tab:orange",
+                ls="none", clip_on=False, label="folded signal (predicted)" if i == 0 else None)
+    if alias_floor_dbfs_per_hz is not None and math.isfinite(alias_floor_dbfs_per_hz) and alias_floor_dbfs_per_hz < bottom:
+        below = True
+    if below:
+        ax.plot([], [], ls="none", label=f"(at the lower edge: predicted below {bottom:.0f} dBFS/Hz)")
+    ax.set_ylim(bottom, top)
     ax.set_xlabel("offset from channel centre")
     ax.set_ylabel("PSD (dBFS/Hz)")
     _hz_axis(ax)
     ax.grid(alpha=0.3)
-    ax.legend(loc="lower center", fontsize=8)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, borderaxespad=0.0)
     ax.set_title(title or f"{name}: output at {psd.fs / 1e3:g} ksps")
     save_figure(fig, path)
+
+
+def _channel_levels(psd, rejection_db, noise_db):
+    """Level axis of a channel plot: from the noise floor less the rejection to above the peak."""
+    from ..dsp.detection import estimate_noise_floor
+
+    dens = psd.dbfs_per_hz()
+    finite = dens[np.isfinite(dens)]
+    top = float(finite.max()) + 10.0 if finite.size else 0.0
+    if noise_db is None or not math.isfinite(noise_db):
+        noise = estimate_noise_floor(psd)
+        noise_db = 10.0 * math.log10(noise) if noise > 0 else (float(finite.min()) if finite.size else -200.0)
+    depth = rejection_db if rejection_db is not None and math.isfinite(rejection_db) else 60.0
+    return noise_db - depth - 10.0, top

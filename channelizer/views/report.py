@@ -4,6 +4,7 @@ import base64
 import html
 import os
 
+from ..checks.alias_audit import format_attenuation
 from ..io.atomic import write_text_atomic
 from .table import stage_rows
 from ..units import format_hz
@@ -88,7 +89,7 @@ def _reading(demo, annotations):
     )
     v = demo.verification
     if v is not None:
-        verdict = "meets" if v.meets_spec else "does not meet"
+        verdict = {"inconclusive": "is neither shown to meet nor to miss (measurement floor)"}.get(v.verdict, v.verdict)
         lines.append(
             f"Tone sweeps through the same code that extracted the channels measured {v.measured_rejection_db:.1f} dB of "
             f"alias rejection and {v.measured_ripple_db:.3f} dB of passband ripple: the chain {verdict} its targets."
@@ -101,7 +102,7 @@ def _reading(demo, annotations):
         margin = (a["output_noise_floor_dbfs_per_hz"] or 0) - a["output_level_dbfs_per_hz"]
         lines.append(
             f"The strongest signal folding onto a channel is the one at {format_hz(a['signal_center_hz'])} "
-            f"({a['signal_power_dbfs']:.1f} dBFS) onto {name}: the chain attenuates it by {a['attenuation_db']:.0f} dB, "
+            f"({a['signal_power_dbfs']:.1f} dBFS) onto {name}: the chain attenuates it by {format_attenuation(a)}, "
             f"so it arrives {margin:.0f} dB below that channel's noise floor."
         )
     if flagged:
@@ -139,13 +140,14 @@ def write_report(demo, *, annotations=()):
     sv = demo.survey
     parts.append("<h2>Survey of the capture</h2>")
     parts.append(
-        f"<p>Welch average with a {sv.psd.window} window and {sv.psd.bin_hz:.4g} Hz bins; noise floor "
+        f"<p>Welch average with a {sv.psd.window} window and {format_hz(sv.psd.bin_hz, digits=4)} bins; noise floor "
         f"{sv.noise_floor_dbfs_per_hz:.1f} dBFS/Hz; occupied bandwidth is the 99 % power bandwidth.</p>"
     )
     parts.append(
         _table(
             ["#", "centre", "occupied bandwidth", "power", "SNR"],
-            [[i, format_hz(s.center_hz), format_hz(s.occupied_bandwidth_hz), f"{s.power_dbfs:.1f} dBFS", f"{s.snr_db:.1f} dB"]
+            [[i, format_hz(s.center_hz, resolution=sv.psd.bin_hz), format_hz(s.occupied_bandwidth_hz, resolution=sv.psd.bin_hz),
+              f"{s.power_dbfs:.1f} dBFS", f"{s.snr_db:.1f} dB"]
              for i, s in enumerate(sv.signals, 1)],
         )
     )
@@ -154,7 +156,7 @@ def write_report(demo, *, annotations=()):
     parts.append(
         _table(
             ["channel", "centre", "rate", "samples", "mean power", "delay (output samples)", "folding signals", "above noise"],
-            [[c.name, format_hz(c.center_frequency), format_hz(c.output_rate, "sps"), c.samples, f"{c.mean_power_dbfs:.1f} dBFS",
+            [[c.name, format_hz(c.center_frequency, digits=10), format_hz(c.output_rate, "sps"), c.samples, f"{c.mean_power_dbfs:.1f} dBFS",
               f"{c.group_delay_output_samples:.1f}", len(c.alias_audit), sum(a["above_noise"] for a in c.alias_audit)]
              for c in ex.channels],
         )
@@ -162,16 +164,20 @@ def write_report(demo, *, annotations=()):
     ov = os.path.join(os.path.dirname(ex.summary_path), "overview.png")
     if os.path.exists(ov):
         parts.append(_img(ov, "input spectrum with the extracted channels"))
+    if "before-after" in demo.figures:
+        parts.append(f"<p>Before and after: channel {html.escape(demo.figures['before-after-channel'])} taken by plain "
+                     "decimation (every D-th sample, no filter), where its neighbours fold in, and through its chain.</p>")
+        parts.append(_img(demo.figures["before-after"], "the channel before and after the chain"))
     for c in ex.channels:
         parts.append(f"<h3 id='ch-{html.escape(c.name)}'>{html.escape(c.name)}</h3>")
         if c.alias_audit:
             parts.append(
                 _table(
                     ["folding signal", "its power", "attenuation", "arrives at", "output noise", "lands at"],
-                    [[format_hz(a["signal_center_hz"]), f"{a['signal_power_dbfs']:.1f} dBFS", f"{a['attenuation_db']:.1f} dB",
+                    [[format_hz(a["signal_center_hz"]), f"{a['signal_power_dbfs']:.1f} dBFS", format_attenuation(a),
                       f"{a['output_level_dbfs_per_hz']:.1f} dBFS/Hz",
                       "-" if a["output_noise_floor_dbfs_per_hz"] is None else f"{a['output_noise_floor_dbfs_per_hz']:.1f} dBFS/Hz",
-                      f"{a['landing_offset_hz']:+.0f} Hz"]
+                      format_hz(a['landing_offset_hz'], signed=True)]
                      for a in c.alias_audit],
                 )
             )

@@ -1,6 +1,9 @@
 """Plain-text tables of a plan's stages, predicted figures and alternatives."""
 
+import math
+
 from ..planning.cost import chain_cost
+from ..planning.response import fold, path_of, resampler_of
 from ..planning.stages import CicStage, ResamplerStage, chain_rates
 from ..units import format_hz
 
@@ -22,6 +25,16 @@ def _detail(st):
     if isinstance(st, ResamplerStage):
         return f"up {st.interpolation}, down {st.decimation}{q}"
     return f"{len(st.taps)} taps{q}"
+
+
+def _overall_ratio(stages):
+    """The chain's rate change as a ratio: ``/245``, or ``x3/4`` through a rational stage."""
+    up = down = 1
+    for st in stages:
+        up, down = up * st.interpolation, down * st.decimation
+    g = math.gcd(up, down)
+    up, down = up // g, down // g
+    return f"/{down}" if up == 1 else f"x{up}/{down}"
 
 
 def stage_rows(plan):
@@ -64,7 +77,7 @@ def format_plan(plan):
     hw = spec.get("objective") == "hardware"
     lines = [
         f"Chain: {format_hz(plan.input_rate, 'sps')} -> {format_hz(plan.output_rate, 'sps')} "
-        f"(x{plan.output_rate / plan.input_rate:.6g}), channel {format_hz(plan.bandwidth)} "
+        f"({_overall_ratio(plan.stages)}), channel {format_hz(plan.bandwidth)} "
         f"(passband +-{format_hz(plan.bandwidth / 2)}), objective {spec.get('objective', 'cpu')}",
         "",
     ]
@@ -87,7 +100,7 @@ def format_plan(plan):
         "",
         f"Predicted passband ripple  {pred['passband_ripple_db']:.4f} dB   (target {spec['ripple_db']:g} dB)",
         f"Predicted alias rejection  {pred['alias_rejection_db']:.2f} dB   (target {spec['rejection_db']:g} dB)"
-        + (f", worst at {format_hz(pred['worst_alias_hz'])} from centre" if "worst_alias_hz" in pred else ""),
+        + (f", worst at {worst_path_text(plan, pred['worst_alias_hz'])}" if "worst_alias_hz" in pred else ""),
     ]
     if "stopband_rejection_db" in pred:
         lines.append(
@@ -98,9 +111,20 @@ def format_plan(plan):
         f"Cost  {t.multiplies_per_input_sample:.4f} multiplies per input sample, "
         f"{t.multiplies_per_second / 1e6:.3f} M multiplies/s, {t.additions_per_second / 1e6:.3f} M additions/s, "
         f"{t.coefficients} coefficients, {t.register_bits} register bits"
-        + (f", {t.multipliers} multipliers at {format_hz(spec.get('clock') or plan.input_rate)}" if hw else ""),
+        + (f", {t.multipliers} multiplier{'s' if t.multipliers != 1 else ''} at {format_hz(spec.get('clock') or plan.input_rate)}" if hw else ""),
     ]
     return "\n".join(lines)
+
+
+def worst_path_text(plan, f):
+    """Where the worst alias is, and whether it is an alias or an image of the rational stage."""
+    k = path_of(plan.stages, f, fs=plan.input_rate, bandwidth=plan.bandwidth)
+    if k == 0:
+        return f"{format_hz(f)} from centre"
+    res, fs_r = resampler_of(plan.stages, fs=plan.input_rate)
+    land = float(fold(f + k * fs_r, plan.output_rate))
+    return (f"{format_hz(f)} from centre on image path {k} of the x{res.interpolation}/{res.decimation} stage, "
+            f"not an alias (its filter sees {format_hz(f + k * fs_r)}; lands at {format_hz(land)})")
 
 
 def format_alternatives(alternatives, limit=5):
