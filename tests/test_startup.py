@@ -65,3 +65,17 @@ def test_plan_without_plot_skips_matplotlib():
     got = _loaded("plan", "--rate", "2.4M", "--bandwidth", "12.5k", "--output-rate", "48k")
     assert got["status"] == 0
     assert not got["heavy"]["matplotlib"] and not got["heavy"]["dask"]
+
+
+def test_fir_response_is_freqz_bit_for_bit():
+    # scipy.signal.freqz at an array of frequencies (the reference) against our numpy copy
+    import numpy as np
+    import scipy.signal
+
+    from channelizer.planning.stages import fir_response
+
+    rng = np.random.default_rng(5)
+    h = rng.standard_normal(97)
+    for f in (np.array([1234.5]), rng.uniform(-3e7, 3e7, 3), rng.uniform(-3e7, 3e7, 4097)):
+        _, ref = scipy.signal.freqz(h, worN=f, fs=61.44e6)
+        assert np.array_equal(fir_response(h, f, fs=61.44e6), ref)

@@ -42,11 +42,10 @@ def fir_response(taps, f, *, fs):
     # importing scipy.signal costs a command about a second of start-up)
     f = np.asarray(f, dtype=float)
     b = np.asarray(taps, dtype=float)
-    zm1 = np.exp(-2j * np.pi * f.ravel() / fs)
+    zm1 = np.exp(-1j * (2 * np.pi * f.ravel() / fs))  # freqz's own rounding of the angle
     h = np.full(zm1.shape, b[-1], dtype=complex)
     for c in b[-2::-1]:
-        h *= zm1
-        h += c
+        h = c + h * zm1  # freqz's order of operations, so its samples come out bit for bit
     return h.reshape(f.shape)
 
 
