@@ -35,19 +35,20 @@ def _refusal(**kw):
 
 def test_stopband_edge_messages_name_the_real_limit():
     # Without --output-rate the only rate is the input's: half of 10 Msps is 5 MHz
-    # (arithmetic), so the message must call 5e+06 Hz half the *input* rate.
+    # (arithmetic), so the message must call 5 MHz half the *input* rate.
     msg = _refusal(input_rate=10e6, bandwidth=1e6, stopband_edge=6e6)
-    assert "half the input rate (5e+06 Hz)" in msg
+    assert "half the input rate (5 MHz)" in msg
     # An edge at 3 MHz needs an output rate above 6 MHz: no decimation by 2 of 10 Msps
     # is left (10/2 = 5 < 6, arithmetic).  The bandwidth alone would allow /8.
     msg = _refusal(input_rate=10e6, bandwidth=1e6, stopband_edge=3e6)
-    assert msg.startswith("stopband edge 3e+06 Hz") and "bandwidth" not in msg
+    assert msg.startswith("stopband edge 3 MHz") and "bandwidth" not in msg
 
 
 def test_output_rate_message_shows_the_rate_as_given():
-    # 1.0000001 MHz printed with %g reads 1e+06, a clean /10 (common practice: %g keeps 6 digits)
+    # 1.0000001 MHz printed to 6 significant digits reads 1 MHz, a clean /10
+    # (common practice: %g keeps 6 digits); the message must keep every digit given.
     msg = _refusal(input_rate=10e6, bandwidth=100e3, output_rate=1.0000001e6)
-    assert "1000000.1 Hz" in msg and "1e+06" not in msg
+    assert "1.0000001 Msps" in msg and "1e+06" not in msg
 
 
 def test_hardware_refusal_names_the_coefficient_width():
@@ -263,6 +264,11 @@ def test_plan_plot_draws_the_rational_composite_at_unit_gain(monkeypatch, tmp_pa
             if line.get_label() in ("composite", "direct path (no folding)"):
                 x, y = np.asarray(line.get_xdata(), float), np.asarray(line.get_ydata(), float)
                 levels.append(float(y[np.argmin(np.abs(x))]))
+        for band in ax.collections:  # the composite drawn as a min/max band over dense columns
+            if band.get_label() == "composite":
+                xy = np.concatenate([p.vertices for p in band.get_paths()])
+                near = np.abs(xy[:, 0]) <= np.min(np.abs(xy[:, 0])) + 1e-9
+                levels.append(float(np.max(xy[near, 1])))
     assert len(levels) == 2 and all(abs(v) < 0.1 for v in levels)
 
 

@@ -254,8 +254,8 @@ def _targets(spec):
             d = min(d, int(math.ceil(fs / (2.0 * spec.stopband_edge))) - 1)
             if d < 2 and default_decimation(fs, spec.bandwidth) >= 2:
                 raise ChannelizerError(
-                    f"stopband edge {spec.stopband_edge:g} Hz needs an output rate above {2 * spec.stopband_edge:g} Hz, "
-                    f"which leaves no decimation of {fs:g} Hz by 2 or more; move the edge below {fs / 4:g} Hz "
+                    f"stopband edge {format_hz(spec.stopband_edge)} needs an output rate above {format_hz(2 * spec.stopband_edge, 'sps')}, "
+                    f"which leaves no decimation of {format_hz(fs, 'sps')} by 2 or more; move the edge below {format_hz(fs / 4)} "
                     "or give --output-rate"
                 )
         if d < 2:
