@@ -31,6 +31,8 @@ from .timing import channel_timing
 __all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples"]
 
 DEFAULT_BLOCK = 1 << 20
+#: Segments of the overview spectrum, spread evenly over the capture (see dsp/spaced_welch.py).
+OVERVIEW_SEGMENTS = 512
 
 
 def plan_identity(data):
@@ -256,7 +258,8 @@ class _Pass:
         # a fixed budget of contiguous segments spread over the file: the audit's resolution at a
         # fraction of the chain's cost however long the capture (see dsp/spaced_welch.py)
         nperseg = _segment_length(fs, audit_resolution, None)
-        self.overview = SpacedWelch(fs=fs, nperseg=nperseg, total=n_total, center_frequency=centre) if spectra else None
+        self.overview = (SpacedWelch(fs=fs, nperseg=nperseg, total=n_total, segments=OVERVIEW_SEGMENTS,
+                                     center_frequency=centre) if spectra else None)
         self.out_spectra = []
         for r in requests:
             n_out = int(n_total * r.plan.output_rate / fs)
