@@ -219,6 +219,8 @@ def _cmd_extract(args):
         block_size=args.block_size,
         trim_settling=args.trim_settling,
         audit_resolution=args.audit_resolution,
+        workers=args.workers,
+        scheduler=args.scheduler,
     )
     if bank is not None:
         from .run.bank_extraction import run_bank_extraction
@@ -297,6 +299,8 @@ def _register_extract(sub):
     e.add_argument("--audit-resolution", type=_rate("audit resolution"), default=None, metavar="HZ", help="bin spacing of the input spectrum the alias audit reads (default: from the narrowest channel, bandwidth / 32)")
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
     e.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
+    e.add_argument("--workers", type=int, metavar="N", help="run on a local dask.distributed cluster of N processes (optional extra: pip install 'channelizer[cluster]')")
+    e.add_argument("--scheduler", metavar="ADDRESS", help="run on a running dask.distributed cluster, e.g. tcp://10.0.0.5:8786 (the capture must be readable by every worker)")
     e.set_defaults(func=_cmd_extract)
 
 
@@ -451,7 +455,7 @@ def _cmd_bench(args):
         for row in planner["specs"]:
             print(f"  {row['seconds']:7.3f} s  {row['layout']:<28} {row['spec']}")
         print(f"  worst {planner['worst_s']:.3f} s (target < {planner['target_s']:g} s): {'met' if planner['met'] else 'MISSED'}\n")
-        report = run_benchmark(seconds=args.seconds or 2.0, channels=args.channels, progress=not args.quiet)
+        report = run_benchmark(seconds=args.seconds or 2.0, channels=args.channels, progress=not args.quiet, workers=args.workers)
         print(format_report(report))
         doc = report.to_dict()
         doc["planner"] = planner
@@ -470,6 +474,7 @@ def _register_bench(sub):
     b.add_argument("--rate", type=_rate("rate"), default=None, help="with --spacing: capture rate (default 2.4M)")
     b.add_argument("--bandwidth", type=_rate("bandwidth"), default=None, help="with --spacing: channel width (default 0.8 x spacing)")
     b.add_argument("--json", metavar="FILE", help="write the figures as JSON")
+    b.add_argument("--workers", type=int, metavar="N", help="also time the extraction on a local dask cluster of N processes against one process")
     b.add_argument("--quiet", action="store_true", help="no progress lines")
     b.set_defaults(func=_cmd_bench)
 

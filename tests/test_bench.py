@@ -144,6 +144,22 @@ def test_format_report_names_the_targets(report):
     assert text.count(" met") + text.count("MISSED") >= 3
 
 
+def test_whole_command_is_timed_beside_its_pass(report):
+    cmd = report.command
+    assert cmd["channels"] == 2 and len(cmd["runs_s"]) == 3 and cmd["best_s"] == min(cmd["runs_s"])
+    # the command holds the pass: start-up, plan reading, audit and summary come on top
+    assert cmd["best_s"] > cmd["pass_s"] > 0
+    assert cmd["outside_pass_s"] == pytest.approx(cmd["best_s"] - cmd["pass_s"], abs=2e-4)
+    assert cmd["realtime_factor"] == pytest.approx(SECONDS / cmd["best_s"], rel=1e-3)
+    # the reference for two channels: two resample_poly passes of the same run
+    assert cmd["reference_s"] == pytest.approx(2 * report.timings["reference"]["best_s"], rel=1e-3)
+    assert cmd["speedup_vs_reference"] == pytest.approx(cmd["reference_s"] / cmd["best_s"], rel=1e-3)
+    for key in ("command_realtime", "command_speedup_vs_reference"):
+        t = report.targets[key]
+        assert t["met"] == (t["value"] >= t["limit"])
+    assert "whole command" in format_report(report)
+
+
 def test_soak_mechanics(soak):
     n = int(0.005e9) // 4
     assert soak.samples == n

@@ -377,7 +377,7 @@ def test_alias_audit_resolves_narrow_channels_and_clips_attenuation(tmp_path):
 
 
 def test_audit_spectrum_has_no_segment_across_skipped_blocks(tmp_path, monkeypatch):
-    # On a long capture the audit's spectrum reads every stride-th block.  A Welch
+    # On a long capture the audit's spectrum reads segments spread over the file.  A Welch
     # segment spanning two blocks far apart in the file would hold a phase jump,
     # whose spectrum falls only as 1/f (a step's transform, common practice) and
     # smears a strong tone over the whole band.  Here a clean tone 80 dB above
@@ -389,7 +389,7 @@ def test_audit_spectrum_has_no_segment_across_skipped_blocks(tmp_path, monkeypat
     from channelizer.run import processor
     from channelizer.run.processor import ChannelRequest, extract_channels
 
-    monkeypatch.setattr(processor, "OVERVIEW_SAMPLES", 32768)
+    monkeypatch.setattr(processor, "OVERVIEW_SEGMENTS", 4)  # a few segments, far apart
     fs, n = 1e6, 1 << 18
     t = np.arange(n)
     x = np.exp(2j * np.pi * 123.4567e3 / fs * t)

@@ -41,6 +41,7 @@ from ..io.sigmf_writer import SigmfWriter
 from ..planning.spec import ChainSpec
 from ..planning.stages import CicStage, ResamplerStage
 from .report import BenchReport, SoakReport
+from .command import time_extract_command
 from .memory import _environment, _measure_in_subprocess
 from .reference import _reference_pass, reference_filter
 
@@ -195,7 +196,7 @@ def _ratio(a, b):
     return a / b if b else None
 
 
-def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repeats=REPEATS):
+def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repeats=REPEATS, workers=None):
     """Time the extract path against a single-stage scipy resampler on a synthetic capture.
 
     Parameters
@@ -211,6 +212,10 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         Say on stderr what is being done.
     repeats : int
         Timed runs per measurement; the best is kept.
+    workers : int, optional
+        Also time the two-channel extraction on a local dask.distributed cluster
+        of this many processes against one process (see
+        :mod:`channelizer.bench.scaling`).
 
     Returns
     -------
@@ -299,6 +304,19 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
             "power_difference_db": round(one_power_db - ref_power_db, 4),
         }
 
+        _say(progress, "timing the whole extract command (fresh interpreter, 2 channels)")
+        command = time_extract_command(base + ".sigmf-meta", plan_path, os.path.join(tmp, "command"), samples=n,
+                                       fs=float(SAMPLE_RATE), reference_one_s=min(runs["reference"]),
+                                       repeats=repeats)
+        scaling = {}
+        if workers is not None:
+            from .command import COMMAND_CHANNELS
+            from .scaling import time_workers
+
+            _say(progress, f"timing one process against {workers} dask workers")
+            scaling = time_workers(base + ".sigmf-meta", requests(COMMAND_CHANNELS), tmp, workers=workers,
+                                   repeats=repeats)
+
         memory = {}
         jobs = {
             "reference": {"mode": "reference", "offsets": [one_offset]},
@@ -337,7 +355,11 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         "speedup_vs_reference": _target(ratios["speedup_vs_reference"], 5.0, ">="),
         "many_over_one_time": _target(ratios["many_over_one_time"], 5.0, "<="),
         "one_channel_realtime": _target(timings["one_channel"]["realtime_factor"], 1.0, ">="),
+        "command_realtime": _target(command["realtime_factor"], 2.0, ">="),
+        "command_speedup_vs_reference": _target(command["speedup_vs_reference"], 15.0, ">="),
     }
+    if scaling:
+        targets["workers_speedup"] = _target(scaling["speedup"], 1.6, ">=")
     return BenchReport(
         capture={"sample_rate": float(SAMPLE_RATE), "seconds": n / SAMPLE_RATE, "samples": n,
                  "datatype": "ci16_le", "block_size": BLOCK, "offsets_hz": offsets},
@@ -358,6 +380,8 @@ def run_benchmark(*, seconds=2.0, channels=8, workdir=None, progress=False, repe
         targets=targets,
         checks=checks,
         environment=_environment(),
+        command=command,
+        workers=scaling,
     )
 
 

@@ -68,6 +68,8 @@ class BenchReport(_JsonReport):
     targets: dict
     checks: dict
     environment: dict
+    command: dict = field(default_factory=dict)
+    workers: dict = field(default_factory=dict)
 
     @property
     def passed(self):
@@ -152,11 +154,27 @@ def format_report(report):
             f"{label:<24}{t['best_s']:>9.3f}{t['input_msps']:>9.1f}{t['realtime_factor']:>13.2f}"
             f"{rss if rss is not None else float('nan'):>13.1f}{heap if heap is not None else float('nan'):>10.1f}"
         )
+    cmd = report.command
+    if cmd:
+        lines += ["", f"whole command ({cmd['channels']} channels, fresh interpreter, start-up included): "
+                  f"best {cmd['best_s']:.3f} s = {cmd['realtime_factor']:.2f}x real time; its pass {cmd['pass_s']:.3f} s "
+                  f"({cmd['pass_realtime_factor']:.2f}x), start-up, audit and summary {cmd['outside_pass_s']:.3f} s; "
+                  f"reference for {cmd['channels']} channels {cmd['reference_s']:.2f} s",
+                  f"  {cmd['argv']}"]
+    w = report.workers
+    if w:
+        lines += ["", f"{w['workers']} dask workers against one process ({w['channels']} channels, {w['chunks']} chunks, "
+                  f"pre-roll {100 * w['overlap_cost']:.1f} % of a chunk): best {min(w['workers_runs_s']):.3f} s "
+                  f"against {min(w['one_process_runs_s']):.3f} s, speed-up {w['speedup']:.2f}x; cluster start "
+                  f"{w['cluster_start_s']:.1f} s; outputs {'identical' if w['identical'] else 'DIFFERENT'}"]
     lines += ["", "targets:"]
     labels = {
         "speedup_vs_reference": "one channel speed / reference speed",
         "many_over_one_time": f"{report.channels} channels time / one channel time",
         "one_channel_realtime": "one channel speed / real time",
+        "command_realtime": "whole command speed / real time",
+        "command_speedup_vs_reference": "whole command speed / reference speed",
+        "workers_speedup": "dask workers speed / one process speed",
     }
     for key, t in report.targets.items():
         lines.append(f"  {labels.get(key, key):<44}{t['value']:>9.2f}  {t['sense']} {t['limit']:g}  {_mark(t)}")

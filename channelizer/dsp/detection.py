@@ -10,12 +10,10 @@ import math
 import re
 
 import numpy as np
-import scipy.fft
-import scipy.signal
-import scipy.stats
 
 from ..errors import ChannelizerError
 from ..units import resolution_step
+from .chi2 import chi2_ppf
 from .spectrum import _db, _finite
 
 #: Noise-only false-alarm probability of the clip level used by the noise-floor trimming.
@@ -46,7 +44,7 @@ _CARRIER_SHARE = 0.5
 
 def _median_to_mean(dof, quantile=0.5):
     """``q``-quantile over mean of a chi-square variable with ``dof`` degrees of freedom."""
-    return float(scipy.stats.chi2.ppf(quantile, dof)) / dof
+    return chi2_ppf(quantile, dof) / dof
 
 
 def _dilate(mask, half):
@@ -94,7 +92,7 @@ def estimate_noise_floor(psd):
     floor = float(np.median(p)) / _median_to_mean(nu)
     if floor <= 0:
         return 0.0
-    clip = float(scipy.stats.chi2.isf(_CLIP_FALSE_ALARM, nu)) / nu
+    clip = _median_to_mean(nu, 1.0 - _CLIP_FALSE_ALARM)  # chi2.isf(1e-3, nu) / nu
     kept_ratio = _median_to_mean(nu, 0.5 * (1.0 - _CLIP_FALSE_ALARM))
     guard = int(math.ceil(2.0 * psd.enbw_bins))
     keep = None
@@ -163,7 +161,7 @@ def noise_floor_profile(psd, *, regions=FLOOR_REGIONS):
         noise |= grow
     profile = 10.0 ** np.interp(np.arange(n), centres[noise], db[noise] / 10.0)
     # refine the noise regions with the trimmed median against the local floor
-    clip = float(scipy.stats.chi2.isf(_CLIP_FALSE_ALARM, nu)) / nu
+    clip = _median_to_mean(nu, 1.0 - _CLIP_FALSE_ALARM)  # chi2.isf(1e-3, nu) / nu
     keep = ~_dilate(p > profile * clip, int(math.ceil(2.0 * psd.enbw_bins)))
     kept_ratio = _median_to_mean(nu, 0.5 * (1.0 - _CLIP_FALSE_ALARM))
     for r in np.flatnonzero(noise):

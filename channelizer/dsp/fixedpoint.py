@@ -168,6 +168,23 @@ class IntegerCic:
         self._integrators = None
         self._combs = None
 
+    def state(self):
+        """A copy of the registers (integrators, combs, held input) to resume from."""
+        if self._pending is None:
+            return None
+        return (self._pending.copy(), [v.copy() for v in self._integrators], [v.copy() for v in self._combs])
+
+    def set_state(self, state):
+        """Resume from :meth:`state` of a CIC of the same parameters (``None``: the start)."""
+        if state is None:
+            self.reset()
+            return
+        pending, integrators, combs = state
+        self._gate.trailing = pending.shape[1:]
+        self._pending = pending.copy()
+        self._integrators = [v.copy() for v in integrators]
+        self._combs = [v.copy() for v in combs]
+
     def __call__(self, x):
         """Feed a block of input samples; return the outputs it completes."""
         x = self._gate(x)
@@ -459,6 +476,14 @@ class PhaseAccumulatorNco:
     def reset(self):
         """Set the accumulator back to 0 for a new stream."""
         self._phase = 0
+
+    def seek(self, index):
+        """Set the accumulator to where a stream starting at sample 0 has it at ``index``.
+
+        ``index * phase_word mod 2**accumulator_bits``, exact in integers (a chunk
+        of a capture starts with the phase the whole stream has there).
+        """
+        self._phase = (int(index) * self.phase_word) % 2**self.accumulator_bits
 
     def _indices(self, count):
         a = self.accumulator_bits

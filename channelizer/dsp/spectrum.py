@@ -29,9 +29,6 @@ from dataclasses import dataclass
 import math
 
 import numpy as np
-import scipy.fft
-import scipy.signal
-import scipy.stats
 
 from ..errors import ChannelizerError
 from ..units import format_hz
@@ -102,6 +99,12 @@ def _segment_length(fs, resolution, nperseg):
 
 
 def _make_window(window, nperseg):
+    if isinstance(window, str) and window in ("hann", "hanning"):
+        # periodic Hann, as scipy.signal.get_window('hann', n, fftbins=True) gives it (Harris 1978 [2]_),
+        # without importing scipy.signal (about a second of a command's start-up)
+        return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(nperseg) / nperseg)
+    import scipy.signal
+
     try:
         w = scipy.signal.get_window(window, nperseg, fftbins=True)
     except (ValueError, TypeError) as exc:
@@ -188,7 +191,7 @@ class _Segmenter:
             batch = max(1, _CHUNK_ELEMENTS // n)
             for i in range(0, count, batch):
                 seg = view[i : min(i + batch, count)] * win
-                spec = scipy.fft.fft(seg, axis=1, overwrite_x=True)
+                spec = np.fft.fft(seg, axis=1)  # numpy >= 2 keeps complex64 in single precision
                 consume(self.segments + i, spec.real**2 + spec.imag**2)
             self.segments += count
         # copy: never hold on to (a view of) the caller's block
@@ -360,29 +363,35 @@ class WelchAccumulator:
         ChannelizerError
             When fewer than ``nperseg`` samples have been fed.
         """
-        k = self._seg.segments
-        if k == 0:
-            raise ChannelizerError(
-                f"spectrum needs at least nperseg = {self.nperseg} samples, got {self._seg.samples}"
-            )
-        w = self._win
-        s2 = float(np.dot(w, w))
-        psd = np.fft.fftshift(self._sum / (k * self.fs * s2))
-        freqs = self.center_frequency + np.fft.fftshift(np.fft.fftfreq(self.nperseg, 1.0 / self.fs))
-        psd.setflags(write=False)
-        freqs.setflags(write=False)
-        return Psd(
-            freqs=freqs,
-            psd=psd,
-            fs=self.fs,
-            center_frequency=self.center_frequency,
-            nperseg=self.nperseg,
-            noverlap=self.noverlap,
-            window=self.window,
-            enbw_hz=self.fs * s2 / float(np.sum(w)) ** 2,
-            segments=k,
-            dof=_welch_dof(w, self.nperseg - self.noverlap, k),
-        )
+        return _psd_from_sum(self, self._sum, self._seg.segments, self.nperseg - self.noverlap, self._seg.samples)
+
+
+def _psd_from_sum(acc, total, k, step, samples):
+    """The :class:`Psd` of ``k`` periodograms summing to ``total``, segments ``step`` apart.
+
+    ``acc`` supplies ``fs``, ``center_frequency``, ``nperseg``, ``window`` and the
+    window's samples ``_win``; ``samples`` is only named in the error for ``k == 0``.
+    """
+    if k == 0:
+        raise ChannelizerError(f"spectrum needs at least nperseg = {acc.nperseg} samples, got {samples}")
+    w = acc._win
+    s2 = float(np.dot(w, w))
+    psd = np.fft.fftshift(total / (k * acc.fs * s2))
+    freqs = acc.center_frequency + np.fft.fftshift(np.fft.fftfreq(acc.nperseg, 1.0 / acc.fs))
+    psd.setflags(write=False)
+    freqs.setflags(write=False)
+    return Psd(
+        freqs=freqs,
+        psd=psd,
+        fs=acc.fs,
+        center_frequency=acc.center_frequency,
+        nperseg=acc.nperseg,
+        noverlap=max(0, acc.nperseg - step),
+        window=acc.window,
+        enbw_hz=acc.fs * s2 / float(np.sum(w)) ** 2,
+        segments=k,
+        dof=_welch_dof(w, step, k),
+    )
 
 
 def tone_power_dbfs(psd, frequency, *, span_bins=None, noise_floor=None):

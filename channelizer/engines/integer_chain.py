@@ -469,6 +469,21 @@ class IntegerChain:
             v = p(v)
         return v
 
+    def seek(self, index):
+        """Start the NCO at the phase a stream from sample 0 has at sample ``index``."""
+        for p in self._points:
+            if isinstance(p, _NcoPoint):
+                p.nco.seek(index)
+
+    def cic_states(self):
+        """Copies of every CIC's registers (their integrators carry the whole history)."""
+        return [p.cic.state() for p in self._points if isinstance(p, _CicPoint)]
+
+    def set_cic_states(self, states):
+        """Resume every CIC from :meth:`cic_states` of the same chain."""
+        for p, st in zip((p for p in self._points if isinstance(p, _CicPoint)), states):
+            p.cic.set_state(st)
+
     def stage_outputs(self, block):
         """Like :meth:`process`, but return every point's output: ``{name: (m, 2) int64}``.
 

@@ -7,7 +7,6 @@ after N inputs, in any split, exactly ``floor(N L / M)`` outputs have come out.
 import math
 
 import numpy as np
-import scipy.signal
 
 from .streaming import _EMPTY, _as_block, _check_factor, _check_taps, _read_only
 
@@ -81,6 +80,8 @@ class RationalResampler:
         y = _EMPTY
         if m_end > self._n_out:
             m0 = self._i_s * L // M  # output index of upfirdn's first sample (exact)
+            import scipy.signal  # here, not at import: a command that never resamples skips its start-up cost
+
             full = scipy.signal.upfirdn(self._h, buf, L, M).astype(np.complex64, copy=False)
             want = m_end - m0
             if full.size < want:  # trailing up-sampler zeros that upfirdn leaves out

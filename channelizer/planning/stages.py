@@ -10,7 +10,6 @@ from fractions import Fraction
 import typing
 
 import numpy as np
-import scipy.signal
 
 __all__ = [
     "CicStage",
@@ -39,8 +38,14 @@ def cic_taps(order, decimation, differential_delay=1):
 
 def fir_response(taps, f, *, fs):
     """Complex response ``sum_k h[k] exp(-2j pi f k / fs)`` at frequencies ``f`` (Hz)."""
+    # Horner's rule in z^-1, as scipy.signal.freqz evaluates a worN array (numpy only:
+    # importing scipy.signal costs a command about a second of start-up)
     f = np.asarray(f, dtype=float)
-    _, h = scipy.signal.freqz(np.asarray(taps, dtype=float), worN=f.ravel(), fs=fs)
+    b = np.asarray(taps, dtype=float)
+    zm1 = np.exp(-1j * (2 * np.pi * f.ravel() / fs))  # freqz's own rounding of the angle
+    h = np.full(zm1.shape, b[-1], dtype=complex)
+    for c in b[-2::-1]:
+        h = c + h * zm1  # freqz's order of operations, so its samples come out bit for bit
     return h.reshape(f.shape)
 
 

@@ -51,6 +51,8 @@ def run_extraction(
     audit=True,
     trim_settling=False,
     audit_resolution=None,
+    workers=None,
+    scheduler=None,
 ):
     """Extract ``entries`` (ChannelEntry) from an open capture into ``out_dir``.
 
@@ -58,8 +60,14 @@ def run_extraction(
     ``base_dir``; otherwise ``plan_path`` serves.  Returns the ExtractResult, with
     ``summary.json`` written and, unless ``plots`` is false, ``overview.png`` and
     one ``NAME.png`` per channel; ``result.warnings`` holds a line per channel whose
-    listed bandwidth is wider than its plan's passband.
+    listed bandwidth is wider than its plan's passband.  ``workers`` (a local cluster
+    of that many processes) or ``scheduler`` (a running cluster's address) runs the
+    pass on dask.distributed (:mod:`channelizer.run.distributed`), with the same outputs.
     """
+    if workers is not None or scheduler is not None:
+        from .distributed import check_cluster_options
+
+        check_cluster_options(workers, scheduler)
     plans = {}
     requests = []
     warnings = []
@@ -80,6 +88,10 @@ def run_extraction(
     kw["trim_settling"] = trim_settling
     if audit_resolution is not None:
         kw["audit_resolution"] = audit_resolution
+    if workers is not None or scheduler is not None:
+        from .distributed import distributed_runner
+
+        kw["runner"] = distributed_runner(workers=workers, scheduler=scheduler)
     result = run_requests(capture, requests, out_dir, (output_format, bit_true, nonfinite, progress, plots, audit), kw)
     result.warnings = warnings
     return result
@@ -89,7 +101,7 @@ def run_requests(capture, requests, out_dir, options, kw):
     """Extract ``requests``, write the summary (all committed together) and the plots.
 
     ``options`` is ``(output_format, bit_true, nonfinite, progress, plots, audit)``;
-    ``kw`` goes to :func:`extract_channels` (block size, engine, settling, audit resolution).
+    ``kw`` goes to :func:`extract_channels` (block size, engine or runner, settling, audit resolution).
     """
     output_format, bit_true, nonfinite, progress, plots, audit = options
     files = FileSet()  # the recordings and the summary appear together, or not at all

@@ -20,7 +20,8 @@ import numpy as np
 from ..io.atomic import FileSet, write_text_atomic
 from ..errors import ChannelizerError
 from ..io.names import safe_output_name
-from ..dsp.spectrum import WelchAccumulator
+from ..dsp.spectrum import WelchAccumulator, _segment_length
+from ..dsp.spaced_welch import SpacedWelch
 from ..planning.response import impulse_seconds
 from ..planning.stages import chain_rates
 from ..io.progress import ProgressBar
@@ -30,8 +31,8 @@ from .timing import channel_timing
 __all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels", "plan_identity", "chain_delay_output_samples"]
 
 DEFAULT_BLOCK = 1 << 20
-#: At most this many input samples go into the overview spectrum (spread over the file).
-OVERVIEW_SAMPLES = 8 << 20
+#: Segments of the overview spectrum, spread evenly over the capture (see dsp/spaced_welch.py).
+OVERVIEW_SEGMENTS = 512
 
 
 def plan_identity(data):
@@ -149,7 +150,7 @@ def extract_channels(
     *,
     output_format="cf32_le",
     bit_true=False,
-    block_size=DEFAULT_BLOCK,
+    block_size=None,
     nonfinite="error",
     progress=False,
     spectra=True,
@@ -157,6 +158,7 @@ def extract_channels(
     trim_settling=False,
     audit_resolution=None,
     engine=None,
+    runner=None,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -169,8 +171,10 @@ def extract_channels(
     output_format : {'cf32_le', 'ci16_le'}
     bit_true : bool
         Run the integer chain (NCO, pruned CIC, quantised FIRs) on the raw integers.
-    block_size : int
-        Input samples read at a time; the output does not depend on it.
+    block_size : int, optional
+        Input samples read at a time; the output does not depend on it (beyond
+        float rounding).  By default about ``DEFAULT_BLOCK``, a multiple of every
+        chain's period, so that a distributed run can match this pass bit for bit.
     nonfinite : {'error', 'zero'}
         What to do with NaN or infinite samples in a float capture.
     progress : bool
@@ -191,6 +195,10 @@ def extract_channels(
         Float runner for all channels at once (``process(block)`` returning one
         array per request, in order), e.g. a filter bank; by default the
         requests' own chains, first stages shared where they can be.
+    runner : callable, optional
+        ``runner(pass_, out_dir, files, output_format=..., nonfinite=...,
+        progress=...)`` does the reading and writing in place of this process
+        (the distributed runner of :mod:`channelizer.run.distributed`).
 
     Returns
     -------
@@ -207,6 +215,10 @@ def extract_channels(
     if bit_true and not capture.datatype.is_integer:
         raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
     _prepare_out_dir(out_dir)
+    if block_size is None:
+        from .chunks import aligned_block_size
+
+        block_size = aligned_block_size([r.plan.stages for r in requests], DEFAULT_BLOCK)
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
                 audit_resolution=audit_resolution, engine=engine)
     one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
@@ -214,7 +226,8 @@ def extract_channels(
     files = FileSet() if own_set else fileset
     t0 = time.perf_counter()
     try:
-        one.run(out_dir, files, output_format=output_format, nonfinite=nonfinite, progress=progress)
+        run = one.run if runner is None else (lambda *a, **k: runner(one, *a, **k))
+        run(out_dir, files, output_format=output_format, nonfinite=nonfinite, progress=progress)
         if own_set:
             files.commit()  # every recording appears together, or none does
     except BaseException:
@@ -227,30 +240,33 @@ def extract_channels(
 class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
-    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None, engine=None):
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None,
+                 engine=None, start_index=0):
         self.capture, self.requests, self.names = capture, requests, names
         self.bit_true, self.block_size = bit_true, block_size
         fs = capture.sample_rate
         centre = capture.center_frequency or 0.0
         if bit_true:
             self.runners = [_integer_chain(r, capture) for r in requests]
+            for runner in self.runners:
+                runner.seek(start_index)  # first sample fed is the capture's sample start_index
         elif engine is not None:
             self.bank = engine
         else:
             # channels sharing a first stage share its matrix product
             from ..engines.float_chain import SharedFrontBank
 
-            self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs)
+            self.bank = SharedFrontBank([(r.plan.stages, r.offset) for r in requests], fs=fs, start_index=start_index)
         n_total = capture.num_samples
-        n_blocks = max(1, -(-n_total // block_size))
-        self.stride = max(1, -(-n_blocks * block_size // OVERVIEW_SAMPLES))
         if audit_resolution is None:
             from ..checks.alias_audit import audit_resolution as default_resolution
 
             audit_resolution = default_resolution([r.plan.bandwidth for r in requests], fs=fs, samples=n_total)
-        if self.stride > 1:  # blocks apart in the file: a segment must fit in one block
-            audit_resolution = max(audit_resolution, fs / 2 ** int(math.log2(block_size)))
-        self.overview = WelchAccumulator(fs=fs, resolution=audit_resolution, center_frequency=centre) if spectra else None
+        # a fixed budget of contiguous segments spread over the file: the audit's resolution at a
+        # fraction of the chain's cost however long the capture (see dsp/spaced_welch.py)
+        nperseg = _segment_length(fs, audit_resolution, None)
+        self.overview = (SpacedWelch(fs=fs, nperseg=nperseg, total=n_total, segments=OVERVIEW_SEGMENTS,
+                                     center_frequency=centre) if spectra else None)
         self.out_spectra = []
         for r in requests:
             n_out = int(n_total * r.plan.output_rate / fs)
@@ -266,60 +282,76 @@ class _Pass:
         self.peak = [0.0] * len(requests)
         self.writers = []
 
-    def _overview_update(self, block):
-        if self.stride > 1:
-            self.overview.restart()  # the previous block fed was not the one before this
-        self.overview.update(block)
-
     def _outputs(self, i, block):
         """Every channel's output for one input block (complex64, full-scale units)."""
         if not self.bit_true:
-            if self.overview is not None and i % self.stride == 0:
-                self._overview_update(block)
+            if self.overview is not None:
+                self.overview.update(block)
             return self.bank.process(block)
         scale_in = 2.0 ** (self.capture.datatype.bits - 1)
         raw = block.astype(np.int64)
         if self.capture.datatype.kind == "u":
             raw = raw - int(scale_in)
-        if self.overview is not None and i % self.stride == 0:
-            self._overview_update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
+        if self.overview is not None and self.overview.needs(raw.shape[0]):
+            self.overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
+        elif self.overview is not None:
+            self.overview.skip(raw.shape[0])
         outs = []
         for runner in self.runners:
             y = runner.process(raw)
             outs.append((y[:, 0] + 1j * y[:, 1]).astype(np.complex64) * np.float32(runner.output_scale))
         return outs
 
-    def run(self, out_dir, files, *, output_format, nonfinite, progress):
-        """Stream the capture into one writer per channel (left uncommitted in ``files``)."""
+    def open_writers(self, stack, out_dir, files, output_format):
+        """One SigMF writer per channel, entered on ``stack``, left uncommitted in ``files``."""
         from ..io.sigmf_writer import SigmfWriter
 
         cap = self.capture
         centre = cap.center_frequency
+        self._skip = [t.skipped for t in self.timing]
+        for r, name, timing in zip(self.requests, self.names, self.timing):
+            meta_global = {
+                "core:description": f"channel {name} extracted by channelizer",
+                "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
+                "channelizer:channel": name,
+                "channelizer:plan_sha256": r.plan_id,
+                "channelizer:plan_source": os.path.basename(r.plan_source) if r.plan_source else "",
+                "channelizer:source_capture": os.path.basename(cap.path),
+                "channelizer:offset_hz": float(r.offset),
+                "channelizer:bit_true": bool(self.bit_true),
+            }
+            w = SigmfWriter(
+                os.path.join(out_dir, name),
+                datatype=output_format,
+                fs=r.plan.output_rate,
+                center_frequency=None if centre is None else centre + r.offset,
+                global_extra=meta_global,
+                capture_extra=timing.capture_fields(cap.start_datetime),
+                annotations=timing.annotations(),
+                fileset=files,
+            )
+            self.writers.append(stack.enter_context(w))
+
+    def take(self, k, y):
+        """Write channel ``k``'s next output samples and add them to its figures."""
+        if self._skip[k]:  # start-up samples left out (--trim-settling)
+            cut = min(self._skip[k], y.size)
+            y, self._skip[k] = y[cut:], self._skip[k] - cut
+        if y.size:
+            self.writers[k].write(y)
+            settled = y[max(0, self.settle[k] - self.count[k]):]
+            self.power[k] += float(np.vdot(settled, settled).real)
+            self.count[k] += y.size
+            self.peak[k] = max(self.peak[k], float(np.abs(y.view(y.real.dtype)).max()))
+            if self.out_spectra[k] is not None:
+                self.out_spectra[k].update(y)
+
+    def run(self, out_dir, files, *, output_format, nonfinite, progress):
+        """Stream the capture into one writer per channel (left uncommitted in ``files``)."""
+        cap = self.capture
         bar = ProgressBar(cap.num_samples, enabled=None if progress else False, label="extract")
         with contextlib.ExitStack() as stack:
-            skip = [t.skipped for t in self.timing]
-            for r, name, timing in zip(self.requests, self.names, self.timing):
-                meta_global = {
-                    "core:description": f"channel {name} extracted by channelizer",
-                    "core:extensions": [{"name": "channelizer", "version": "1.0.0", "optional": True}],
-                    "channelizer:channel": name,
-                    "channelizer:plan_sha256": r.plan_id,
-                    "channelizer:plan_source": os.path.basename(r.plan_source) if r.plan_source else "",
-                    "channelizer:source_capture": os.path.basename(cap.path),
-                    "channelizer:offset_hz": float(r.offset),
-                    "channelizer:bit_true": bool(self.bit_true),
-                }
-                w = SigmfWriter(
-                    os.path.join(out_dir, name),
-                    datatype=output_format,
-                    fs=r.plan.output_rate,
-                    center_frequency=None if centre is None else centre + r.offset,
-                    global_extra=meta_global,
-                    capture_extra=timing.capture_fields(cap.start_datetime),
-                    annotations=timing.annotations(),
-                    fileset=files,
-                )
-                self.writers.append(stack.enter_context(w))
+            self.open_writers(stack, out_dir, files, output_format)
             if self.bit_true:
                 blocks = cap.raw_blocks(self.block_size)
             else:
@@ -327,17 +359,7 @@ class _Pass:
             done = 0
             for i, block in enumerate(blocks):
                 for k, y in enumerate(self._outputs(i, block)):
-                    if skip[k]:  # start-up samples left out (--trim-settling)
-                        cut = min(skip[k], y.size)
-                        y, skip[k] = y[cut:], skip[k] - cut
-                    if y.size:
-                        self.writers[k].write(y)
-                        settled = y[max(0, self.settle[k] - self.count[k]):]
-                        self.power[k] += float(np.vdot(settled, settled).real)
-                        self.count[k] += y.size
-                        self.peak[k] = max(self.peak[k], float(np.abs(y.view(y.real.dtype)).max()))
-                        if self.out_spectra[k] is not None:
-                            self.out_spectra[k].update(y)
+                    self.take(k, y)
                 done += block.shape[0]
                 bar.update(done)
             bar.close()

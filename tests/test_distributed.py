@@ -1,0 +1,263 @@
+"""Chunks in time and the dask.distributed runner: the same recordings as one process.
+
+Outside sources: the trade facts of down-sampling (a length-12 sequence
+down-sampled by 2 has 6 samples, by 3 has 4; common practice) for the chain's
+period; the chunked-filtering rule of methods.md (a chunk on the period preceded
+by the chain's memory gives the single pass's samples; the NCO phase at the chunk
+start is 2 pi f n0 / fs, exact); dask.distributed's LocalCluster for the runs on
+two processes.  The single pass of this project is the reference the chunked runs
+must equal (same counts, bit for bit).
+"""
+
+import json
+import math
+import os
+import sys
+
+import numpy as np
+import pytest
+
+from channelizer.cli import main
+from channelizer.errors import ChannelizerError
+from channelizer.io.captures import open_capture
+from channelizer.io.sigmf_writer import write_sigmf
+from channelizer.planning.planner import plan_chain
+from channelizer.planning.spec import ChainSpec
+from channelizer.planning.stages import CicStage, FirStage, ResamplerStage
+from channelizer.run.chunks import aligned_block_size, chain_memory, chain_period, chunk_layout
+from channelizer.run.distributed import INSTALL_HINT, run_on_client
+from channelizer.run.processor import ChannelRequest, extract_channels
+
+FS = 2.4e6
+CENTRE = 145.0e6
+N = 600_000  # 0.25 s
+BLOCK = 50 * 1024  # a multiple of the chains' periods below (50 and 150)
+
+
+def test_chain_period_follows_each_stage_grid():
+    # common practice: decimating by 2 then 3 repeats every 6 inputs (12 -> 6 -> 2 samples)
+    two = FirStage(decimation=2, taps=(0.5, 0.5))
+    three = FirStage(decimation=3, taps=(1 / 3,) * 3)
+    assert chain_period((two, three)) == 6
+    # a resampler 3/2 after a decimator by 4: its input must sit on multiples of 2, i.e. chain inputs of 8
+    res = ResamplerStage(interpolation=3, decimation=2, taps=(1.0,) * 6)
+    assert chain_period((FirStage(decimation=4, taps=(0.25,) * 4), res)) == 8
+    # a resampler 5/6 needs its input on multiples of 6
+    assert chain_period((res.__class__(interpolation=5, decimation=6, taps=(1.0,) * 10),)) == 6
+
+
+def test_chain_memory_is_the_taps_scaled_to_the_input_rate():
+    # methods.md: sum over stages of (len(h) - 1) at the input rate
+    cic = CicStage(decimation=8, order=3)  # boxcar**3: 3 (8 - 1) + 1 taps
+    fir = FirStage(decimation=2, taps=(0.1,) * 11)
+    assert chain_memory((cic, fir)) == 3 * 7 + 10 * 8
+    res = ResamplerStage(interpolation=3, decimation=2, taps=(1.0,) * 7)
+    assert chain_memory((FirStage(decimation=4, taps=(0.25,) * 4), res)) == 3 + math.ceil(6 / 3 * 4)
+
+
+def test_layout_covers_the_capture_once_on_the_block_grid():
+    stages = (FirStage(decimation=2, taps=(0.5, 0.5)), FirStage(decimation=3, taps=(1 / 3,) * 3))
+    lay = chunk_layout([stages], 1000, chunk_samples=250, block_size=120)
+    assert lay.on_block_grid and lay.preroll == 120
+    assert lay.chunks[0][0] == 0 and lay.chunks[-1][1] == 1000
+    assert all(a % 120 == 0 and b - a == 360 for a, b in lay.chunks[:-1])  # 250 rounded up to whole blocks
+    assert all(b == c for (_, b), (c, _) in zip(lay.chunks, lay.chunks[1:]))
+    off = chunk_layout([stages], 1000, chunk_samples=250, block_size=100)  # 100 is off the period
+    assert not off.on_block_grid and off.preroll == 6 and all(a % 6 == 0 for a, _ in off.chunks)
+    assert aligned_block_size([stages], 100) == 96
+
+
+@pytest.fixture(scope="module")
+def scene(tmp_path_factory):
+    """ci16 capture: noise, a strong tone and a weak one; an integer and a rational plan."""
+    d = tmp_path_factory.mktemp("dist")
+    rng = np.random.default_rng(15)
+    n = np.arange(N)
+    x = (rng.standard_normal(N) + 1j * rng.standard_normal(N)) * 3e-4
+    x += 0.5 * np.exp(2j * np.pi * 3_000 * n / FS) + 1e-3 * np.exp(2j * np.pi * 401_000 * n / FS)
+    base = str(d / "cap")
+    write_sigmf(base, x.astype(np.complex64), datatype="ci16_le", fs=FS, center_frequency=CENTRE)
+    plans = {}
+    for name, rate in (("int", 48e3), ("rat", 36e3)):
+        plan = plan_chain(ChainSpec(input_rate=FS, bandwidth=12.5e3, output_rate=rate)).plan
+        path = d / f"{name}.yaml"
+        path.write_text(plan.to_yaml())
+        plans[name] = (str(path), plan)
+    assert plans["rat"][1].stages[-1].kind == "resampler"
+    return base + ".sigmf-meta", plans, d
+
+
+def _requests(plans):
+    # the strong tone's channel, and a weak one 60 dB down whose rms would show any front-end rounding
+    return [ChannelRequest("strong", 0.0, plans["int"][1], "a"), ChannelRequest("weak", 400_000.0, plans["rat"][1], "b")]
+
+
+def _read_all(folder, names):
+    out = {}
+    for name in names:
+        cap = open_capture(os.path.join(folder, name + ".sigmf-meta"))
+        out[name] = cap.read(0, cap.num_samples)
+    return out
+
+
+class _InlineFuture:
+    def __init__(self, fn, args):
+        self._fn, self._args = fn, args
+
+    def result(self):
+        args = [a.result() if isinstance(a, _InlineFuture) else a for a in self._args]
+        return self._fn(*args)
+
+    def cancel(self):
+        pass
+
+
+class _InlineClient:
+    """Runs each task when its result is asked for, in this process (the client side without dask)."""
+
+    def submit(self, fn, *args, pure=False, retries=0):
+        return _InlineFuture(fn, args)
+
+
+@pytest.mark.parametrize("bit_true", [False, True])
+def test_chunked_run_writes_the_single_pass_samples(scene, tmp_path, bit_true):
+    cap_path, plans, _ = scene
+    reqs = _requests(plans)
+    block = aligned_block_size([r.plan.stages for r in reqs], BLOCK)
+    assert block == BLOCK
+    single = extract_channels(open_capture(cap_path), reqs, str(tmp_path / "one"), bit_true=bit_true, block_size=block)
+
+    def runner(one, *a, **k):
+        run_on_client(_InlineClient(), one, *a, chunk_samples=2 * block, **k)
+
+    chunked = extract_channels(open_capture(cap_path), reqs, str(tmp_path / "chunks"), bit_true=bit_true,
+                               block_size=block, runner=runner)
+    a = _read_all(tmp_path / "one", ["strong", "weak"])
+    b = _read_all(tmp_path / "chunks", ["strong", "weak"])
+    for name in a:
+        assert a[name].size == b[name].size > 1000
+        assert np.array_equal(a[name], b[name]), name
+    for c1, c2 in zip(single.channels, chunked.channels):
+        # the power is summed (in single precision) per written piece: the same samples, grouped otherwise
+        assert c1.samples == c2.samples and c1.mean_power_dbfs == pytest.approx(c2.mean_power_dbfs, abs=1e-4)
+    # the overview's spaced segments are the same ones, added in another order
+    np.testing.assert_allclose(chunked.overview.psd, single.overview.psd, rtol=1e-9)
+
+
+def test_off_grid_chunks_stay_within_float_rounding(scene, tmp_path):
+    # blocks off the period: chunks get the memory as pre-roll, outputs equal up to rounding
+    cap_path, plans, _ = scene
+    reqs = _requests(plans)[:1]
+    extract_channels(open_capture(cap_path), reqs, str(tmp_path / "one"), block_size=65_536, spectra=False)
+
+    def runner(one, *a, **k):
+        run_on_client(_InlineClient(), one, *a, chunk_samples=100_000, **k)
+
+    extract_channels(open_capture(cap_path), reqs, str(tmp_path / "chunks"), block_size=65_536, spectra=False,
+                     runner=runner)
+    a = _read_all(tmp_path / "one", ["strong"])["strong"]
+    b = _read_all(tmp_path / "chunks", ["strong"])["strong"]
+    rms = np.sqrt(np.mean(np.abs(a) ** 2))
+    assert a.size == b.size and np.max(np.abs(a - b)) <= 1e-6 * rms
+
+
+def test_without_dask_the_options_end_with_one_install_line(scene, tmp_path, monkeypatch, capsys):
+    cap_path, plans, _ = scene
+    monkeypatch.setitem(sys.modules, "distributed", None)  # import distributed -> ImportError
+    for opt in (["--workers", "2"], ["--scheduler", "tcp://127.0.0.1:1"]):
+        status = main(["extract", cap_path, "--plan", plans["int"][0], "--channel", "a=+0", "--out",
+                       str(tmp_path / "o"), "--quiet", *opt])
+        err = capsys.readouterr().err.strip().splitlines()
+        assert status == 2 and err == [f"error: {INSTALL_HINT}"]
+    assert not os.path.exists(tmp_path / "o")
+
+
+distributed = pytest.importorskip("distributed")
+
+
+@pytest.fixture(scope="module")
+def client():
+    from channelizer.run.distributed import cluster_client
+
+    with cluster_client(workers=2) as c:
+        yield c
+
+
+def _cli(cap_path, plans, out, *extra):
+    return main(["extract", cap_path, "--plan", plans["int"][0], "--channel", "strong=+0", "--channel",
+                 "weak=+400k", "--out", str(out), "--quiet", "--no-plots", "--block-size", str(BLOCK), *extra])
+
+
+@pytest.mark.parametrize("bit_true", [[], ["--bit-true"]])
+def test_two_worker_cluster_gives_the_one_process_recordings(scene, tmp_path, bit_true):
+    cap_path, plans, _ = scene
+    assert _cli(cap_path, plans, tmp_path / "one", *bit_true) == 0
+    assert _cli(cap_path, plans, tmp_path / "two", "--workers", "2", *bit_true) == 0
+    a = _read_all(tmp_path / "one", ["strong", "weak"])
+    b = _read_all(tmp_path / "two", ["strong", "weak"])
+    for name in a:
+        assert a[name].size == b[name].size and np.array_equal(a[name], b[name]), name
+    s1 = json.loads((tmp_path / "one" / "summary.json").read_text())
+    s2 = json.loads((tmp_path / "two" / "summary.json").read_text())
+    for c1, c2 in zip(s1["channels"], s2["channels"]):
+        assert c1["samples"] == c2["samples"] and c1["mean_power_dbfs"] == pytest.approx(c2["mean_power_dbfs"], abs=1e-3)
+        assert [e["signal_center_hz"] for e in c1["alias_audit"]] == pytest.approx(
+            [e["signal_center_hz"] for e in c2["alias_audit"]])
+
+
+def test_a_worker_that_dies_has_its_chunk_run_again(scene, tmp_path, client):
+    cap_path, plans, _ = scene
+    reqs = _requests(plans)
+    marker = str(tmp_path / "died-once")
+    extract_channels(open_capture(cap_path), reqs, str(tmp_path / "one"), block_size=BLOCK, spectra=False)
+
+    def dies_once(job, states=None):
+        import os as _os
+
+        from channelizer.run.chunk_pass import run_chunk
+
+        if job.start > 0 and not _os.path.exists(marker):
+            open(marker, "w").close()
+            _os._exit(1)  # the worker process dies mid-run
+        return run_chunk(job, states)
+
+    def runner(one, *a, **k):
+        run_on_client(client, one, *a, chunk_samples=2 * BLOCK, task=dies_once, **k)
+
+    extract_channels(open_capture(cap_path), reqs, str(tmp_path / "two"), block_size=BLOCK, spectra=False,
+                     runner=runner)
+    assert os.path.exists(marker)
+    a = _read_all(tmp_path / "one", ["strong", "weak"])
+    b = _read_all(tmp_path / "two", ["strong", "weak"])
+    for name in a:
+        assert np.array_equal(a[name], b[name])
+
+
+def test_a_chunk_that_keeps_failing_fails_the_run_whole(scene, tmp_path, client):
+    cap_path, plans, _ = scene
+
+    def always_fails(job, states=None):
+        if job.start > 0:
+            raise RuntimeError("disk went away")
+        from channelizer.run.chunk_pass import run_chunk
+
+        return run_chunk(job, states)
+
+    def runner(one, *a, **k):
+        run_on_client(client, one, *a, chunk_samples=2 * BLOCK, task=always_fails, **k)
+
+    out = tmp_path / "two"
+    with pytest.raises(ChannelizerError, match=r"distributed run failed at chunk 2 of .*disk went away.*nothing was written"):
+        extract_channels(open_capture(cap_path), _requests(plans), str(out), block_size=BLOCK, spectra=False,
+                         runner=runner)
+    assert [f for f in os.listdir(out) if not f.startswith(".")] == []
+
+
+def test_bench_workers_figures(scene, tmp_path):
+    from channelizer.bench.scaling import time_workers
+
+    cap_path, plans, _ = scene
+    got = time_workers(cap_path, _requests(plans), str(tmp_path), workers=2, repeats=1)
+    assert got["workers"] == 2 and got["identical"]
+    assert got["speedup"] == pytest.approx(min(got["one_process_runs_s"]) / min(got["workers_runs_s"]), rel=1e-2, abs=1e-3)
+    assert got["chunks"] >= 1 and 0 <= got["overlap_cost"] < 1
