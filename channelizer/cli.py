@@ -300,7 +300,7 @@ def _register_extract(sub):
     e.add_argument("--block-size", type=int, default=None, help=argparse.SUPPRESS)
     e.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
     e.add_argument("--workers", type=int, metavar="N", help="run on a local dask.distributed cluster of N processes (optional extra: pip install 'channelizer[cluster]')")
-    e.add_argument("--scheduler", metavar="ADDRESS", help="run on a running dask.distributed cluster, e.g. tcp://10.0.0.5:8786 (the capture must be readable by every worker)")
+    e.add_argument("--scheduler", metavar="ADDRESS", help="run on a running dask.distributed cluster, e.g. tcp://scheduler-host:8786 (the capture must be readable by every worker)")
     e.set_defaults(func=_cmd_extract)
 
 
