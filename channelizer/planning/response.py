@@ -145,10 +145,22 @@ def path_of(stages, f, *, fs, bandwidth):
     A frequency inside the passband can reach it again only as an image; outside it,
     the direct path's alias is named first when both apply.
     """
-    ks = sorted(k for lo, hi, k in alias_intervals(stages, fs=fs, bandwidth=bandwidth) if lo <= f <= hi)
-    if abs(f) <= bandwidth / 2.0:
-        ks = [k for k in ks if k > 0]
-    return ks[0] if ks else 0
+    fs_out = chain_rates(stages, fs=fs)[-1]
+    res, fs_r = resampler_of(stages, fs=fs)
+    k = np.arange(res.interpolation if res is not None else 1)
+    x = f + k * fs_r  # where path k puts f, before the final folding
+    fp = bandwidth / 2.0
+    hit = np.zeros(k.shape, dtype=bool)
+    for shift in (-1, 0, 1):  # the fold nearest x, and its neighbours when fp exceeds fs_out / 2
+        j = np.round(x / fs_out) + shift
+        d = x - j * fs_out
+        hit |= (np.abs(d) <= fp) & ~((k == 0) & (j == 0))
+    if abs(f) > fs / 2.0:
+        hit[:] = False
+    if abs(f) <= fp:
+        hit[0] = False  # inside the passband only an image can bring it back
+    ks = np.flatnonzero(hit)
+    return int(ks[0]) if ks.size else 0
 
 
 @dataclass(frozen=True)
