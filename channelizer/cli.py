@@ -63,6 +63,7 @@ def _cmd_plan(args):
     from .planning.spec import ChainSpec
     from .views.table import format_alternatives, format_plan
 
+    _check_outputs([args.out, args.plot], figures=[args.plot])
     spec = ChainSpec(
         input_rate=args.rate,
         bandwidth=args.bandwidth,
@@ -82,13 +83,11 @@ def _cmd_plan(args):
     if alt:
         print(alt)
     if args.out:
-        _check_output_path(args.out)
         write_text_atomic(args.out, result.plan.to_yaml())
         print(f"\nplan written to {args.out}")
     if args.plot:
         from .views.plots import plot_plan
 
-        _check_output_path(args.plot)
         plot_plan(result.plan, args.plot)
         print(f"response plot written to {args.plot}")
     return 0
@@ -98,11 +97,11 @@ def _cmd_show(args):
     from .views.table import format_plan
 
     plan = read_plan(args.plan)
+    _check_outputs([args.plot], figures=[args.plot], inputs=[args.plan])
     print(format_plan(plan))
     if args.plot:
         from .views.plots import plot_plan
 
-        _check_output_path(args.plot)
         plot_plan(plan, args.plot)
         print(f"response plot written to {args.plot}")
     return 0
@@ -120,11 +119,9 @@ def _open_capture(args):
 
 
 def _read_text(path, what):
-    try:
-        with open(path, "rb") as fh:
-            data = fh.read(16 * 2**20 + 1)
-    except OSError as exc:
-        raise ChannelizerError(f"{path}: cannot read {what} ({exc.strerror})") from None
+    from .io.paths import read_regular_file
+
+    data = read_regular_file(path, what=what, limit=16 * 2**20)
     if len(data) > 16 * 2**20:
         raise ChannelizerError(f"{path}: larger than 16 MiB; not a {what}")
     try:
@@ -157,6 +154,7 @@ def _cmd_extract(args):
         progress=not args.quiet,
         nonfinite="zero" if args.zero_nonfinite else "error",
         block_size=args.block_size,
+        inputs=[args.channels] if args.channels else [],
     )
     from .units import format_hz
 
@@ -211,9 +209,7 @@ def _cmd_survey(args):
     from .views.survey_plot import plot_survey
 
     capture = _open_capture(args)
-    for path in (args.plot, args.channels_out):
-        if path:
-            _check_output_path(path)
+    _check_outputs([args.plot, args.channels_out], figures=[args.plot], inputs=[capture.path, capture.data_path])
     result = survey_capture(capture, resolution=args.resolution, threshold_db=args.threshold_db, progress=not args.quiet)
     print(format_survey(result))
     if args.plot:
@@ -276,9 +272,7 @@ def _cmd_verify(args):
     from .views.verify_plot import plot_verification
 
     plan = read_plan(args.plan)
-    for path in (args.plot, args.json):
-        if path:
-            _check_output_path(path)
+    _check_outputs([args.plot, args.json], figures=[args.plot], inputs=[args.plan])
     v = verify_plan(plan, bit_true=args.bit_true, tones=args.tones)
     print("\n".join(v.summary_lines()))
     if args.plot:
@@ -308,8 +302,7 @@ def _cmd_bench(args):
     from .bench.planner_timing import time_planner
     from .bench.report import format_report, format_soak_report
 
-    if args.json:
-        _check_output_path(args.json)
+    _check_outputs([args.json])
     if args.soak:
         report = run_soak(gigabytes=args.soak, channels=4, progress=not args.quiet)
         print(format_soak_report(report))
@@ -343,7 +336,10 @@ def _register_bench(sub):
 def _cmd_export(args):
     from .handoff.export import export_plan
 
+    from .io.paths import check_outputs
+
     plan = read_plan(args.plan)
+    check_outputs(folders=[args.out], inputs=[args.plan])
     report = export_plan(plan, args.out, coefficient_bits=args.coefficient_bits, vectors=args.vectors)
     print(report.format())
     return 0
@@ -358,12 +354,14 @@ def _register_export(sub):
     x.set_defaults(func=_cmd_export)
 
 
-def _check_output_path(path):
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise ChannelizerError(f"{path}: folder {folder} does not exist")
-    if os.path.isdir(path):
-        raise ChannelizerError(f"{path}: is a folder, expected a file name")
+def _check_outputs(files, *, figures=(), inputs=()):
+    """Refuse output files that are inputs, folders or repeated, and figures of an unknown format."""
+    from .io.paths import check_outputs, figure_format
+
+    for path in figures:
+        if path:
+            figure_format(path)
+    check_outputs(files, inputs=inputs)
 
 
 def build_parser():

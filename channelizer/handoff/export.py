@@ -32,7 +32,7 @@ from ..errors import ChannelizerError
 from ..planning.hogenauer import _checked_int
 from ..engines.integer_chain import IntegerChain
 from ..io.names import safe_output_name
-from ..planning.plan import Plan
+from ..planning.plan import MAX_COEFFICIENT_BITS, Plan
 from ..planning.response import predict
 from ..planning.stages import CicStage, ResamplerStage, chain_rates
 from ..units import format_hz
@@ -43,7 +43,7 @@ EXPORT_FORMAT = "channelizer-export/1"
 MANIFEST = "manifest.json"
 VECTOR_DIR = "vectors"
 MAX_VECTORS = 10_000_000
-_MAX_COEFFICIENT_BITS = 32
+_MAX_COEFFICIENT_BITS = MAX_COEFFICIENT_BITS  # each is written as a C int32_t
 
 
 @dataclass(frozen=True)

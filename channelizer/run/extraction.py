@@ -10,21 +10,19 @@ from ..io.channels import resolve_offset
 from ..errors import ChannelizerError
 from ..planning.plan import MAX_PLAN_BYTES, Plan
 from ..io.atomic import FileSet
-from .processor import ChannelRequest, extract_channels, plan_identity, write_summary
+from ..io.paths import check_outputs, read_regular_file
+from ..io.run_folder import StagedFolder
+from .output_folder import check_run_folder
+from .processor import ChannelRequest, check_requests, extract_channels, plan_identity, write_summary
 
 __all__ = ["load_plan_file", "run_extraction"]
 
 
 def load_plan_file(path):
     """Read and validate a plan file; returns (plan, identity)."""
-    try:
-        size = os.path.getsize(path)
-        if size > MAX_PLAN_BYTES:
-            raise ChannelizerError(f"{path}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
-        with open(path, "rb") as fh:
-            data = fh.read()
-    except OSError as exc:
-        raise ChannelizerError(f"{path}: cannot read plan ({exc.strerror})") from None
+    data = read_regular_file(path, what="plan", limit=MAX_PLAN_BYTES)
+    if len(data) > MAX_PLAN_BYTES:
+        raise ChannelizerError(f"{path}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
     return Plan.from_yaml(data, source=path), plan_identity(data)
 
 
@@ -42,6 +40,7 @@ def run_extraction(
     nonfinite="error",
     block_size=None,
     audit=True,
+    inputs=(),
 ):
     """Extract ``entries`` (ChannelEntry) from an open capture into ``out_dir``.
 
@@ -49,6 +48,11 @@ def run_extraction(
     ``base_dir``; otherwise ``plan_path`` serves.  Returns the ExtractResult, with
     ``summary.json`` written and, unless ``plots`` is false, ``overview.png`` and
     one ``NAME.png`` per channel.
+
+    ``out_dir`` then holds exactly this run: it must be missing, empty or an earlier
+    run (:func:`channelizer.run.output_folder.check_run_folder`), which is replaced
+    as a whole, and it may not be or hold any input (the capture, the plans, and
+    ``inputs``, e.g. the channel list).
     """
     plans = {}
     requests = []
@@ -61,15 +65,21 @@ def run_extraction(
         plan, ident = plans[path]
         requests.append(ChannelRequest(e.name, resolve_offset(e, capture.center_frequency), plan, ident, path))
     kw = {} if block_size is None else {"block_size": block_size}
-    files = FileSet()  # the recordings and the summary appear together, or not at all
-    try:
-        result = _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)
-        files.commit()
-    except BaseException:
-        files.abort()
-        raise
-    if plots:
-        _plot(result, requests, capture, out_dir)
+    check_requests(capture, requests, bit_true=bit_true, **kw)
+    check_outputs(folders=[out_dir], inputs=[capture.path, capture.data_path, *plans, *inputs])
+    # the whole run (recordings, summary, plots) is built in a hidden sibling folder and
+    # replaces out_dir in one rename (channelizer.io.run_folder)
+    with StagedFolder(out_dir, kind="run", check=check_run_folder).writing() as stage:
+        files = FileSet()
+        try:
+            result = _extract_and_summarise(capture, requests, stage, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)
+            files.commit()
+        except BaseException:
+            files.abort()
+            raise
+        if plots:
+            _plot(result, requests, capture, stage)
+    result.summary_path = os.path.join(out_dir, os.path.basename(result.summary_path))
     return result
 
 
