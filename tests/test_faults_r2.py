@@ -26,9 +26,8 @@ from channelizer.errors import ChannelizerError
 from channelizer.io.atomic import FileSet
 from channelizer.io.run_folder import StagedFolder
 from channelizer.io.sigmf_writer import write_sigmf
-from channelizer.planning.planner import plan_chain
-from channelizer.planning.spec import ChainSpec
 from channelizer.run.output_folder import check_run_folder
+from test_faults import _noise, plan_path, small_capture  # noqa: F401 - fixtures shared with the first round
 
 FS = 2.4e6
 CENTER = 161.0e6
@@ -36,26 +35,8 @@ REPO = Path(__file__).resolve().parent.parent
 ENV = dict(os.environ, PYTHONPATH=str(REPO))
 
 
-@pytest.fixture(scope="module")
-def plan_path(tmp_path_factory):
-    path = tmp_path_factory.mktemp("plan") / "relay.yaml"
-    path.write_text(plan_chain(ChainSpec(input_rate=FS, bandwidth=12.5e3, output_rate=48e3)).plan.to_yaml())
-    return str(path)
-
-
-def _noise(n, seed, scale=0.1):
-    rng = np.random.default_rng(seed)
-    return (scale * (rng.standard_normal(n) + 1j * rng.standard_normal(n))).astype(np.complex64)
-
-
-@pytest.fixture(scope="module")
-def capture(tmp_path_factory):
-    base = tmp_path_factory.mktemp("cap") / "site"
-    write_sigmf(base, _noise(60_000, 1), datatype="cf32_le", fs=FS, center_frequency=CENTER)
-    return str(base) + ".sigmf-meta"
-
-
 def _files(folder):
+    """name -> bytes in ``folder``, or None when there is no folder."""
     folder = Path(folder)
     return {p.name: p.read_bytes() for p in folder.iterdir()} if folder.exists() else None
 
@@ -70,22 +51,22 @@ def _extract(capture, plan, out, *channels, extra=()):
 # -- a run's folder holds exactly that run ----------------------------------------------------------
 
 
-def test_second_run_replaces_the_first_as_a_whole(tmp_path, plan_path, capture, capsys):
+def test_second_run_replaces_the_first_as_a_whole(tmp_path, plan_path, small_capture, capsys):
     out = tmp_path / "out"
-    assert main(_extract(capture, plan_path, out, "a=+0", "b=+100k")) == 0
+    assert main(_extract(small_capture, plan_path, out, "a=+0", "b=+100k")) == 0
     assert sorted(os.listdir(out)) == [
         "a.png", "a.sigmf-data", "a.sigmf-meta", "b.png", "b.sigmf-data", "b.sigmf-meta", "overview.png", "summary.json"
     ]
-    assert main(_extract(capture, plan_path, out, "c=-50k", extra=["--no-plots"])) == 0
+    assert main(_extract(small_capture, plan_path, out, "c=-50k", extra=["--no-plots"])) == 0
     # nothing of the first run is left beside the second one's summary
     assert sorted(os.listdir(out)) == ["c.sigmf-data", "c.sigmf-meta", "summary.json"]
     assert [c["name"] for c in json.loads((out / "summary.json").read_text())["channels"]] == ["c"]
     assert sorted(os.listdir(tmp_path)) == ["out"]  # no hidden sibling left
 
 
-def test_a_failed_plot_keeps_the_previous_run_and_names_the_real_file(tmp_path, plan_path, capture, capsys, monkeypatch):
+def test_a_failed_plot_keeps_the_previous_run_and_names_the_real_file(tmp_path, plan_path, small_capture, capsys, monkeypatch):
     out = tmp_path / "out"
-    assert main(_extract(capture, plan_path, out, "a=+0", "b=+100k")) == 0
+    assert main(_extract(small_capture, plan_path, out, "a=+0", "b=+100k")) == 0
     before = _files(out)
     capsys.readouterr()
 
@@ -97,7 +78,7 @@ def test_a_failed_plot_keeps_the_previous_run_and_names_the_real_file(tmp_path, 
         return real(fig, path)
 
     monkeypatch.setattr(channelizer.views.plots, "save_figure", full_disk)
-    rc = main(_extract(capture, plan_path, out, "a=+25k", "b=-25k"))
+    rc = main(_extract(small_capture, plan_path, out, "a=+25k", "b=-25k"))
     assert rc == 2
     # the file that could not be written, under its real name, never the hidden folder's
     assert capsys.readouterr().err == f"error: {out}/b.png: No space left on device\n"
@@ -105,16 +86,16 @@ def test_a_failed_plot_keeps_the_previous_run_and_names_the_real_file(tmp_path, 
     assert sorted(os.listdir(tmp_path)) == ["out"]
 
 
-def test_an_interrupt_while_plotting_keeps_the_previous_run(tmp_path, plan_path, capture, capsys, monkeypatch):
+def test_an_interrupt_while_plotting_keeps_the_previous_run(tmp_path, plan_path, small_capture, capsys, monkeypatch):
     out = tmp_path / "out"
-    assert main(_extract(capture, plan_path, out, "a=+0")) == 0
+    assert main(_extract(small_capture, plan_path, out, "a=+0")) == 0
     before = _files(out)
 
     def interrupted(*args, **kwargs):
         raise KeyboardInterrupt
 
     monkeypatch.setattr(channelizer.views.plots, "plot_channel", interrupted)
-    assert main(_extract(capture, plan_path, out, "a=+25k")) == 130
+    assert main(_extract(small_capture, plan_path, out, "a=+25k")) == 130
     assert "no output was completed" in capsys.readouterr().err
     assert _files(out) == before
     assert sorted(os.listdir(tmp_path)) == ["out"]
@@ -279,7 +260,7 @@ def test_all_zero_capture_is_valid_input(tmp_path, plan_path, capsys):
 
 def test_loud_capture_reports_its_true_power(tmp_path, plan_path, capsys):
     base = tmp_path / "loud"
-    write_sigmf(base, _noise(48_000, 5, scale=3e37), datatype="cf32_le", fs=FS, center_frequency=CENTER)
+    write_sigmf(base, _noise(48_000, 5) * np.float32(3e38), datatype="cf32_le", fs=FS, center_frequency=CENTER)
     out = tmp_path / "out"
     assert main(_extract(str(base) + ".sigmf-meta", plan_path, out, "a=+0", extra=["--no-plots"])) == 0
     y = np.fromfile(out / "a.sigmf-data", dtype=np.complex64).astype(np.complex128)
@@ -287,7 +268,7 @@ def test_loud_capture_reports_its_true_power(tmp_path, plan_path, capsys):
     expected = 10 * math.log10(np.mean(np.abs(y) ** 2))
     got = json.loads((out / "summary.json").read_text())["channels"][0]["mean_power_dbfs"]
     assert got == pytest.approx(expected, abs=1e-3)
-    assert expected > 700  # (3e37)^2: about 750 dB above full scale
+    assert expected > 700  # components of rms 3e37: about 750 dB above full scale
 
 
 # -- figures in the format the name asks for --------------------------------------------------------

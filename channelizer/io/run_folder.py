@@ -27,7 +27,7 @@ import tempfile
 
 from ..errors import ChannelizerError
 
-__all__ = ["StagedFolder"]
+__all__ = ["StagedFolder", "folder_entries"]
 
 _AT_FDCWD = -100
 _RENAME_EXCHANGE = 2
@@ -67,6 +67,24 @@ def _sync_folder(folder):
             os.fsync(fd)
         finally:
             os.close(fd)
+
+
+def folder_entries(path, *, hint=""):
+    """The sorted names in output folder ``path``, or None when it is missing.
+
+    A symbolic link, a file, or a folder that cannot be listed is refused (``hint`` is
+    added to the "not a folder" message).
+    """
+    if not os.path.lexists(path):
+        return None
+    if os.path.islink(path):
+        raise ChannelizerError(f"{path}: is a symbolic link; give the folder itself or another --out")
+    if not os.path.isdir(path):
+        raise ChannelizerError(f"{path}: exists and is not a folder{hint}")
+    try:
+        return sorted(os.listdir(path))
+    except OSError as exc:
+        raise ChannelizerError(f"{path}: cannot read the output folder ({exc.strerror})") from None
 
 
 class StagedFolder:
@@ -111,13 +129,15 @@ class StagedFolder:
 
     def open(self):
         """Check the folder, clean leftovers, and make the hidden sibling; returns its path."""
-        if not os.path.isdir(self.parent):
+        if os.path.isdir(self.parent):
+            self.clean_leftovers()
+            self.state = self._check(self.path)
+        else:  # a new parent holds no leftovers
+            self.state = self._check(self.path)
             try:
                 os.makedirs(self.parent, exist_ok=True)
             except OSError as exc:
                 raise ChannelizerError(f"{self.path}: cannot create output folder ({exc.strerror})") from None
-        self.clean_leftovers()
-        self.state = self._check(self.path)
         base = os.path.basename(os.path.abspath(self.path))
         try:
             self.temp = tempfile.mkdtemp(prefix=f".{base}.{self.kind}-{os.getpid()}-", suffix=".part", dir=self.parent)

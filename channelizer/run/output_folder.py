@@ -14,6 +14,7 @@ import re
 
 from ..errors import ChannelizerError
 from ..io.paths import read_regular_file
+from ..io.run_folder import folder_entries
 from .processor import CHANNEL_SUFFIXES, RUN_FILES
 
 __all__ = ["check_run_folder"]
@@ -45,16 +46,9 @@ def _summary_files(path):
 
 def check_run_folder(path):
     """Refuse an output folder a run may not replace; return ``missing``, ``empty`` or ``ours``."""
-    if not os.path.lexists(path):
+    entries = folder_entries(path)
+    if entries is None:
         return "missing"
-    if os.path.islink(path):
-        raise ChannelizerError(f"{path}: is a symbolic link; give the folder itself or another --out")
-    if not os.path.isdir(path):
-        raise ChannelizerError(f"{path}: exists and is not a folder")
-    try:
-        entries = sorted(os.listdir(path))
-    except OSError as exc:
-        raise ChannelizerError(f"{path}: cannot read the output folder ({exc.strerror})") from None
     if not entries:
         return "empty"
     ours = _summary_files(path)
