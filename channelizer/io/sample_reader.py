@@ -41,6 +41,13 @@ class SampleFile:
         except OSError as exc:
             raise ChannelizerError(f"{path}: cannot read: {exc.strerror}") from None
 
+    def __getstate__(self):
+        # a copy in another process opens the file itself (a file descriptor does not travel)
+        return (self.path, self.dtype, self.offset, self.shape[0])
+
+    def __setstate__(self, state):
+        self.__init__(*state)
+
     def __len__(self):
         return self.shape[0]
 
