@@ -21,6 +21,7 @@ __all__ = ["check_outputs", "read_regular_file", "figure_format", "FIGURE_FORMAT
 
 #: Figure formats the plots are written in, chosen by the file name's extension.
 FIGURE_FORMATS = ("png", "svg", "pdf")
+_MAX_ENTRIES = 100_000
 
 
 def _identity(path):
@@ -47,10 +48,16 @@ def _inside(folder, path):
     want = _identity(path)
     if want is None or not os.path.isdir(folder):
         return False
+    # a hard link of the input anywhere a run or an export writes (two levels: vectors/);
+    # a deeper or larger folder is no earlier output of ours and is refused as such anyway
+    seen = 0
     for root, dirs, files in os.walk(folder):
+        if root[len(folder):].count(os.sep) >= 2:
+            dirs[:] = []
         for name in files + dirs:
-            if _identity(os.path.join(root, name)) == want:
-                return True
+            seen += 1
+            if seen > _MAX_ENTRIES or _identity(os.path.join(root, name)) == want:
+                return seen <= _MAX_ENTRIES
     return False
 
 
