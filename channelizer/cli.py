@@ -74,6 +74,7 @@ def _cmd_plan(args):
             "--clock is the hardware clock that multipliers are shared at; it only applies with --objective hardware "
             "(the cpu objective counts multiplies per second and has no clock)"
         )
+    _check_outputs([args.out, args.plot], figures=[args.plot])
     spec = ChainSpec(
         input_rate=args.rate,
         bandwidth=args.bandwidth,
@@ -93,13 +94,11 @@ def _cmd_plan(args):
     if alt:
         print(alt)
     if args.out:
-        _check_output_path(args.out)
         write_text_atomic(args.out, result.plan.to_yaml())
         print(f"\nplan written to {args.out}")
     if args.plot:
         from .views.plots import plot_plan
 
-        _check_output_path(args.plot)
         plot_plan(result.plan, args.plot)
         print(f"response plot written to {args.plot}")
     return 0
@@ -124,9 +123,7 @@ def _plan_bank(args):
         first=args.first, last=args.last, ripple_db=args.ripple_db, rejection_db=args.rejection_db,
         input_bits=args.input_bits, output_bits=args.output_bits,
     )
-    for path in (args.out, args.plot):
-        if path:
-            _check_output_path(path)
+    _check_outputs([args.out, args.plot], figures=[args.plot])
     result = plan_bank(spec)
     bank = isinstance(result.plan, BankPlan)
     print(format_bank_plan(result.plan) if bank else format_plan(result.plan))
@@ -149,6 +146,7 @@ def _cmd_show(args):
     from .views.table import format_plan
 
     bank = load_bank_plan_file(args.plan)
+    _check_outputs([args.plot], figures=[args.plot], inputs=[args.plan])
     if bank is not None:
         from .views.bank_table import format_bank_plan
 
@@ -160,7 +158,6 @@ def _cmd_show(args):
     if args.plot:
         from .views.plots import plot_plan
 
-        _check_output_path(args.plot)
         plot_plan(plan, args.plot)
         print(f"response plot written to {args.plot}")
     return 0
@@ -178,11 +175,9 @@ def _open_capture(args):
 
 
 def _read_text(path, what):
-    try:
-        with open(path, "rb") as fh:
-            data = fh.read(16 * 2**20 + 1)
-    except OSError as exc:
-        raise ChannelizerError(f"{path}: cannot read {what} ({exc.strerror})") from None
+    from .io.paths import read_regular_file
+
+    data = read_regular_file(path, what=what, limit=16 * 2**20)
     if len(data) > 16 * 2**20:
         raise ChannelizerError(f"{path}: larger than 16 MiB; not a {what}")
     try:
@@ -221,6 +216,7 @@ def _cmd_extract(args):
         audit_resolution=args.audit_resolution,
         workers=args.workers,
         scheduler=args.scheduler,
+        inputs=[args.channels] if args.channels else [],
     )
     if bank is not None:
         from .run.bank_extraction import run_bank_extraction
@@ -311,9 +307,7 @@ def _cmd_survey(args):
     from .views.survey_plot import plot_survey
 
     capture = _open_capture(args)
-    for path in (args.plot, args.channels_out):
-        if path:
-            _check_output_path(path)
+    _check_outputs([args.plot, args.channels_out], figures=[args.plot], inputs=[capture.path, capture.data_path])
     result = survey_capture(capture, resolution=args.resolution, threshold_db=args.threshold_db, progress=not args.quiet)
     print(format_survey(result))
     if args.plot:
@@ -400,9 +394,7 @@ def _cmd_verify(args):
     bank = load_bank_plan_file(args.plan)
     if bank is not None and (args.bit_true or args.plot):
         raise ChannelizerError(f"--{'bit-true' if args.bit_true else 'plot'} does not cover filter-bank plans yet; verify {args.plan} without it")
-    for path in (args.plot, args.json):
-        if path:
-            _check_output_path(path)
+    _check_outputs([args.plot, args.json], figures=[args.plot], inputs=[args.plan])
     if bank is not None:
         from .checks.bank_verify import verify_bank
 
@@ -437,8 +429,7 @@ def _cmd_bench(args):
     from .bench.planner_timing import time_planner
     from .bench.report import format_report, format_soak_report
 
-    if args.json:
-        _check_output_path(args.json)
+    _check_outputs([args.json])
     if args.spacing is not None:
         from .bench.bank_speed import format_bank_report, run_bank_benchmark
 
@@ -482,7 +473,10 @@ def _register_bench(sub):
 def _cmd_export(args):
     from .handoff.export import export_plan
 
+    from .io.paths import check_outputs
+
     plan = read_plan(args.plan)
+    check_outputs(folders=[args.out], inputs=[args.plan])
     report = export_plan(plan, args.out, coefficient_bits=args.coefficient_bits, vectors=args.vectors)
     print(report.format())
     if not report.meets_spec:
@@ -501,12 +495,14 @@ def _register_export(sub):
     x.set_defaults(func=_cmd_export)
 
 
-def _check_output_path(path):
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise ChannelizerError(f"{path}: folder {folder} does not exist")
-    if os.path.isdir(path):
-        raise ChannelizerError(f"{path}: is a folder, expected a file name")
+def _check_outputs(files, *, figures=(), inputs=()):
+    """Refuse output files that are inputs, folders or repeated, and figures of an unknown format."""
+    from .io.paths import check_outputs, figure_format
+
+    for path in figures:
+        if path:
+            figure_format(path)
+    check_outputs(files, inputs=inputs)
 
 
 def build_parser():

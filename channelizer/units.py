@@ -5,7 +5,19 @@ import re
 
 from .errors import ChannelizerError
 
-__all__ = ["parse_frequency", "format_hz", "resolution_step"]
+__all__ = ["parse_frequency", "format_hz", "resolution_step", "check_rate_range", "MIN_HZ", "MAX_HZ"]
+
+#: Rates and frequencies the tool works with: far inside float64, so that the products
+#: and quotients of rates in a chain neither underflow to 0 nor overflow.
+MIN_HZ = 1e-3
+MAX_HZ = 1e13
+
+
+def check_rate_range(value, name):
+    """Refuse a rate outside ``MIN_HZ`` to ``MAX_HZ`` (``name`` says which), e.g. 5e-324 Hz."""
+    if not MIN_HZ <= value <= MAX_HZ:
+        raise ChannelizerError(f"{name} {value:g} Hz is outside the {MIN_HZ:g} to {MAX_HZ:g} Hz this tool works in")
+    return value
 
 _SUFFIX = {"": 1.0, "k": 1e3, "K": 1e3, "M": 1e6, "G": 1e9}
 _NUMBER = re.compile(

@@ -13,6 +13,8 @@ inputs are noted at each generator (YAML 1.1 as PyYAML reads it; SigMF 1.x; WAV
 layouts as scipy.io.wavfile writes them).
 """
 
+import hashlib
+import json
 import os
 import shutil
 import subprocess
@@ -116,6 +118,70 @@ def make_out_file(tmp):
     (tmp / "out").write_text("not a folder\n")
 
 
+# -- second round: generators named r2_* also get the valid plan and capture --------------------
+
+
+def make_r2_capture_copy(tmp, folder, valid):
+    """The valid capture's two files copied into ``tmp/folder``."""
+    (tmp / folder).mkdir(exist_ok=True)
+    for ext in (".sigmf-meta", ".sigmf-data"):
+        shutil.copy(valid["capture"][: -len(".sigmf-meta")] + ext, tmp / folder / ("site" + ext))
+
+
+def make_r2_plan_copy(tmp, name, valid):
+    (tmp / name).parent.mkdir(exist_ok=True)
+    shutil.copy(valid["plan"], tmp / name)
+
+
+def make_r2_symlink(tmp, link, target, valid):
+    os.symlink(target, tmp / link)
+
+
+def make_r2_hard_link(tmp, link, target, valid):
+    os.link(tmp / target, tmp / link)
+
+
+def make_r2_file(tmp, name, text, valid):
+    (tmp / name).parent.mkdir(exist_ok=True)
+    (tmp / name).write_text(text)
+
+
+def make_r2_folder(tmp, name, valid):
+    (tmp / name).mkdir()
+
+
+def make_r2_fifo(tmp, name, valid):
+    os.mkfifo(tmp / name)
+
+
+def make_r2_earlier_run(tmp, channel, valid, data_link=None, data_folder=False):
+    """``tmp/out`` as an earlier run of one channel leaves it: its summary and recording.
+
+    ``data_link``: the recording's data file is a hard link to that file of ``tmp``;
+    ``data_folder``: a folder stands at the data file's name.
+    """
+    out = tmp / "out"
+    out.mkdir()
+    files = [f"{channel}.sigmf-data", f"{channel}.sigmf-meta"]
+    summary = {"capture": "site.sigmf-meta", "channels": [{"name": channel, "files": files}]}
+    (out / "summary.json").write_text(json.dumps(summary))
+    (out / files[1]).write_text("{}")
+    if data_link:
+        os.link(tmp / data_link, out / files[0])
+    elif data_folder:
+        (out / files[0]).mkdir()
+        (out / files[0] / "inside.txt").write_text("kept\n")
+    else:
+        (out / files[0]).write_bytes(bytes(64))
+
+
+def make_r2_scaled_capture(tmp, name, scale, valid):
+    """A constant ``scale (1 + 1j)``: at 3.4e38, float32's largest value (IEEE 754), the filters'
+    overshoot cannot be held in float32."""
+    x = np.full(24_000, scale * (1 + 1j), dtype=np.complex64)
+    write_sigmf(tmp / name, x, datatype="cf32_le", fs=FS, center_frequency=CENTER)
+
+
 GENERATORS = {
     "huge_plan": make_huge_plan,
     "huge_channel_list": make_huge_channel_list,
@@ -126,6 +192,7 @@ GENERATORS = {
     "raw": make_raw,
     "nonfinite_capture": make_nonfinite_capture,
     "out_file": make_out_file,
+    **{name[len("make_"):]: f for name, f in globals().items() if name.startswith("make_r2_")},
 }
 
 
@@ -141,7 +208,8 @@ def _substitute(text, places):
 def _prepare(name, tmp, valid):
     case = CASES[name]
     for gen, kwargs in (case.get("make") or {}).items():
-        GENERATORS[gen](tmp, **(kwargs or {}))
+        extra = {"valid": valid} if gen.startswith("r2_") else {}
+        GENERATORS[gen](tmp, **(kwargs or {}), **extra)
     places = {"bad": str(BAD), "tmp": str(tmp), "out": str(tmp / "out"), **valid}
     args = [_substitute(a, places) for a in case["args"]]
     return args, _substitute(case["stderr"], places)
@@ -156,19 +224,43 @@ def _snapshot(folder):
     return {str(p.relative_to(folder)): p.read_bytes() for p in folder.rglob("*") if p.is_file()}
 
 
+def _tree(folder):
+    """Every entry under ``folder`` (links not followed, FIFOs not opened): kind and content."""
+    found = {}
+    for root, dirs, files in os.walk(folder):
+        for name in dirs + files:
+            p = Path(root) / name
+            rel = str(p.relative_to(folder))
+            if p.is_symlink():
+                found[rel] = ("link", os.readlink(p))
+            elif p.is_dir():
+                found[rel] = ("folder",)
+            elif p.is_file():
+                found[rel] = ("file", hashlib.sha256(p.read_bytes()).hexdigest())
+            else:
+                found[rel] = ("other",)
+    return found
+
+
 def _assert_refused(rc, out, err, expected, tmp, before):
     assert rc == 2
     assert err == expected + "\n", f"stderr was {err!r}"
     assert not any(mark in err for mark in TRACEBACK_MARKS)
     assert out == ""
     # nothing was written where output goes, not even a temporary file
-    assert _snapshot(tmp / "out") == before
+    assert _snapshot(tmp / "out") == before[0]
+    # second round: nothing under the test's folder changed, inputs included, no hidden leftover
+    assert before[1] is None or _tree(tmp) == before[1]
+
+
+def _before(name, tmp):
+    return _snapshot(tmp / "out"), (_tree(tmp) if name.startswith("r2_") else None)
 
 
 @pytest.mark.parametrize("name", sorted(CASES))
 def test_refused_in_process(name, tmp_path, valid, capsys):
     args, expected = _prepare(name, tmp_path, valid)
-    before = _snapshot(tmp_path / "out")
+    before = _before(name, tmp_path)
     capsys.readouterr()
     rc = main(args)
     captured = capsys.readouterr()
@@ -179,7 +271,7 @@ def test_refused_in_process(name, tmp_path, valid, capsys):
 def test_refused_in_a_fresh_interpreter(name, tmp_path, valid):
     """``python -m channelizer`` as a user runs it: exit status 2 and only the one line."""
     args, expected = _prepare(name, tmp_path, valid)
-    before = _snapshot(tmp_path / "out")
+    before = _before(name, tmp_path)
     env = dict(os.environ, PYTHONPATH=str(REPO))
     proc = subprocess.run(
         [sys.executable, "-m", "channelizer", *args],

@@ -191,7 +191,8 @@ def test_killed_run_leaves_nothing_that_looks_complete(tmp_path, plan_path, big_
     try:
         deadline = time.monotonic() + 60
         while time.monotonic() < deadline and proc.poll() is None:
-            parts = list(out.glob(".*.part")) if out.exists() else []
+            # the run is built in a hidden sibling folder (channelizer.io.run_folder)
+            parts = list(tmp_path.glob(".out.run-*.part/.*.part"))
             if any(p.stat().st_size > 0 for p in parts):
                 break  # samples are being written: kill it now
             time.sleep(0.002)
@@ -201,7 +202,9 @@ def test_killed_run_leaves_nothing_that_looks_complete(tmp_path, plan_path, big_
         proc.kill()
         proc.wait()
     assert proc.returncode == -signal.SIGKILL
-    left = sorted(p.name for p in out.iterdir())
+    assert not out.exists()  # nothing under the output's name
+    (stage,) = tmp_path.glob(".out.run-*.part")
+    left = sorted(p.name for p in stage.iterdir())
     assert left, "a killed run leaves its temporary files"
     # only hidden temporary files: no .sigmf-meta, no .sigmf-data under its own name, no summary
     assert all(re.fullmatch(r"\.[ab]\.sigmf-data\.[^/]+\.part", n) for n in left), left
@@ -217,6 +220,7 @@ def test_killed_run_leaves_nothing_that_looks_complete(tmp_path, plan_path, big_
         # 6e6 samples / 25 (CIC) / 2 (FIR): floor(N/M) per stage (Oppenheim & Schafer 4.6)
         assert rec.read_samples().shape == (6_000_000 // 50,)
     assert (out / "summary.json").is_file()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]  # the killed run's leftovers were cleaned
 
 
 # -- a real full disk: a 2 MiB tmpfs ---------------------------------------------------------------
@@ -245,7 +249,7 @@ def test_full_tmpfs_gives_one_line_and_leaves_nothing(small_disk, plan_path, big
     err = capsys.readouterr().err
     assert rc == 2
     assert re.fullmatch(re.escape(f"error: {out}/") + r"[abcd]\.sigmf-data: cannot write: No space left on device\n", err), err
-    assert sorted(os.listdir(out)) == []  # the temporary files were removed: the space is free again
+    assert sorted(os.listdir(small_disk)) == []  # the temporary files were removed: the space is free again
     # two channels (1.92 MB) fit: the space the failed run used was given back
     assert main(_extract(big_capture, plan_path, out, "a=+0", "b=+100k")) == 0
     assert sorted(os.listdir(out)) == ["a.sigmf-data", "a.sigmf-meta", "b.sigmf-data", "b.sigmf-meta", "summary.json"]

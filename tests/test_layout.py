@@ -19,6 +19,7 @@ PACKAGE = Path(channelizer.__file__).parent
 LAYER = {
     "errors": -1,
     "units": 0,
+    "strict_yaml": 0,
     "planning": 1,
     "io": 1,
     "dsp": 2,

@@ -32,22 +32,25 @@ from channelizer.planning.plan import PLAN_FORMAT, Plan
 from channelizer.planning.planner import plan_chain
 from channelizer.io.sigmf_writer import write_sigmf
 from channelizer.planning.spec import ChainSpec
+from channelizer.planning.hogenauer import cic_registers
 from channelizer.planning.stages import CicStage, FirStage, ResamplerStage, chain_rates
+from channelizer.units import MAX_HZ, MIN_HZ
 from channelizer.views.table import format_plan
 
 FIXTURE_OK = settings(deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 
 # -- plans ----------------------------------------------------------------------------------------
 
-# finite floats of every size: ordinary, tiny (down to subnormals) and huge
+# finite floats of every size a plan may hold: ordinary, tiny (down to subnormals) and up to
+# the +-1e6 a tap may be (plan.MAX_TAP); coefficients up to the 32 bits of a C int32_t
 tap_values = st.one_of(
     st.floats(-2.0, 2.0, allow_nan=False),
     st.floats(-1e-300, 1e-300, allow_nan=False, allow_subnormal=True),
-    st.floats(allow_nan=False, allow_infinity=False).filter(lambda x: abs(x) > 1e100),
-    st.sampled_from([0.0, -0.0, 5e-324, -5e-324, 1.7976931348623157e308, 1e16, 1e-5, 0.1]),
+    st.floats(-1e6, 1e6, allow_nan=False).filter(lambda x: abs(x) > 1e3),
+    st.sampled_from([0.0, -0.0, 5e-324, -5e-324, 1e6, -1e6, 1e-5, 0.1]),
 )
 taps = st.lists(tap_values, min_size=1, max_size=40).map(tuple)
-coefficient_bits = st.one_of(st.just((None, None)), st.tuples(st.integers(2, 64), st.integers(0, 80)))
+coefficient_bits = st.one_of(st.just((None, None)), st.tuples(st.integers(2, 32), st.integers(0, 80)))
 
 
 @st.composite
@@ -63,10 +66,12 @@ def halfband_taps(draw):
 
 
 @st.composite
-def cic_stages(draw):
-    order = draw(st.integers(1, 10))
-    pruned = draw(st.one_of(st.just(()), st.lists(st.integers(0, 64), min_size=2 * order + 1, max_size=2 * order + 1).map(tuple)))
-    return CicStage(draw(st.integers(2, 64)), order, draw(st.integers(1, 4)), draw(st.integers(1, 128)), pruned)
+def cic_stages(draw, bits):
+    """A CIC with Hogenauer's widths for the spec's bits (a plan may state no others)."""
+    order, dec, m = draw(st.integers(1, 10)), draw(st.integers(2, 64)), draw(st.integers(1, 4))
+    regs = cic_registers(order, dec, m, input_bits=bits["input"], output_bits=bits["output"])
+    pruned = draw(st.sampled_from([(), tuple(regs.discarded)]))
+    return CicStage(dec, order, m, regs.full_bits, pruned)
 
 
 @st.composite
@@ -86,23 +91,24 @@ def resampler_stages(draw):
 
 @st.composite
 def plans(draw):
-    stages = draw(st.lists(st.one_of(cic_stages(), fir_stages()), min_size=0, max_size=4))
+    bits = {"input": draw(st.integers(1, 64)), "output": draw(st.integers(1, 64))}
+    stages = draw(st.lists(st.one_of(cic_stages(bits), fir_stages()), min_size=0, max_size=4))
     if not stages or draw(st.booleans()):
         stages.append(draw(resampler_stages()))
     input_rate = draw(st.one_of(st.floats(1e3, 1e11), st.integers(1000, 10**11).map(float)))
     output_rate = chain_rates(stages, fs=input_rate)[-1]
     assume(output_rate > 0)
     bandwidth = output_rate * draw(st.floats(1e-3, 0.999))
-    assume(0 < bandwidth < output_rate)
+    assume(MIN_HZ <= bandwidth < output_rate <= MAX_HZ)  # the rate range of units.MIN_HZ, MAX_HZ
     spec = {
         "ripple_db": draw(st.floats(1e-6, 10.0)),
         "rejection_db": draw(st.floats(1.0, 300.0)),
     }
     if draw(st.booleans()):
         spec["objective"] = draw(st.sampled_from(["cpu", "hardware"]))
-    spec["bits"] = {"input": draw(st.integers(1, 64)), "output": draw(st.integers(1, 64))}
+    spec["bits"] = bits
     if draw(st.booleans()):
-        spec["bits"]["coefficient"] = draw(st.integers(2, 64))
+        spec["bits"]["coefficient"] = draw(st.integers(2, 32))
     if draw(st.booleans()):
         spec["clock"] = draw(st.floats(1.0, 1e12))
     predicted = {

@@ -16,6 +16,7 @@ import numpy as np
 
 from ..planning.response import alias_intervals, fold, image_step, normalised_response
 from ..dsp.detection import detect_signals, estimate_noise_floor
+from ..dsp.spectrum import power_db
 
 __all__ = ["audit_channel", "audit_resolution", "format_attenuation", "ATTENUATION_CEILING_DB"]
 
@@ -85,7 +86,7 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
     fs = plan.input_rate
     fp = plan.bandwidth / 2
     chan_centre = psd.center_frequency + req.offset
-    noise_out = 10 * math.log10(estimate_noise_floor(psd))
+    noise_out = power_db(estimate_noise_floor(psd))
     intervals = alias_intervals(plan.stages, fs=fs, bandwidth=plan.bandwidth)
     step = image_step(plan.stages, fs=fs)
     bin_hz = psd.bin_hz

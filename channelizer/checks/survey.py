@@ -18,6 +18,7 @@ __all__ = ["SurveyResult", "survey_capture", "format_survey", "OCCUPIED_BANDWIDT
 #: A float capture whose samples reach this magnitude (12 dB over full scale) is not scaled to full scale.
 UNSCALED_PEAK = 4.0
 
+SPECTROGRAM_ELEMENTS = 1 << 25
 OCCUPIED_BANDWIDTH_DEFINITION = (
     "99 % power bandwidth (ITU-R SM.328): 0.5 % of the signal's power, noise subtracted, lies below "
     "the band and 0.5 % above"
@@ -65,7 +66,7 @@ def survey_capture(capture, *, resolution=None, threshold_db=10.0, block_size=1 
     """
     fs = capture.sample_rate
     centre = capture.center_frequency or 0.0
-    kw = {"resolution": resolution} if resolution else {"nperseg": 4096}
+    kw = {"resolution": resolution} if resolution is not None else {"nperseg": 4096}
     n = capture.num_samples
     welch = WelchAccumulator(fs=fs, center_frequency=centre, **kw)
     if n < welch.nperseg:
@@ -74,6 +75,8 @@ def survey_capture(capture, *, resolution=None, threshold_db=10.0, block_size=1 
         raise ChannelizerError(
             f"{capture.path}: {n} samples are fewer than one {welch.nperseg}-point segment; use a coarser --resolution"
         )
+    # at most SPECTROGRAM_ELEMENTS bins in all (rows x nperseg float64: 256 MiB)
+    rows = max(1, min(rows, SPECTROGRAM_ELEMENTS // welch.nperseg))
     spec = SpectrogramAccumulator(fs=fs, total_samples=n, rows=rows, nperseg=welch.nperseg, center_frequency=centre)
     bar = ProgressBar(n, enabled=None if progress else False, label="survey")
     done = 0
@@ -130,6 +133,8 @@ def format_survey(result):
 
 def _floor_line(result):
     """The noise-floor line: its median level, and its range when it varies across the band."""
+    if not math.isfinite(result.noise_floor_dbfs_per_hz):
+        return "Noise floor -inf dBFS/Hz: every sample is zero (no signal)"
     text = (
         f"Noise floor {result.noise_floor_dbfs_per_hz:.1f} dBFS/Hz (median); signals at least "
         f"{result.threshold_db:g} dB above it in their occupied band"

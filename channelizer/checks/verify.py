@@ -74,6 +74,8 @@ from .tones import _alias_tones, _db, _noise_gain, _passband_tones, _path_gain, 
 __all__ = ["ToneMeasurement", "Verification", "verify_plan"]
 
 DEFAULT_ALIAS_TONES = 200
+#: Most alias tones one verify measures (each runs a fresh chain: time grows with the count).
+MAX_ALIAS_TONES = 10_000
 FIT_SAMPLES = 256
 BIT_TRUE_FIT_SAMPLES = 512
 BIT_TRUE_AMPLITUDE = 0.5
@@ -361,9 +363,11 @@ def _fit(y, freqs, *, fs_out, start, dc=False):
     return a, err
 
 
-def _check_count(value, name, *, low=1):
+def _check_count(value, name, *, low=1, high=None):
     if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < low:
         raise ChannelizerError(f"{name}: expected an integer of at least {low}, got {value!r}")
+    if high is not None and value > high:
+        raise ChannelizerError(f"{name}: {value} is more than the {high} allowed (each runs its own chain)")
     return int(value)
 
 
@@ -418,7 +422,7 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
         raise ChannelizerError(f"plan: expected a Plan, got {type(plan).__name__}")
     if not isinstance(bit_true, bool):
         raise ChannelizerError(f"bit_true: expected True or False, got {bit_true!r}")
-    n_alias = DEFAULT_ALIAS_TONES if tones is None else _check_count(tones, "tones")
+    n_alias = DEFAULT_ALIAS_TONES if tones is None else _check_count(tones, "tones", high=MAX_ALIAS_TONES)
     if fit_samples is None:
         fit_samples = BIT_TRUE_FIT_SAMPLES if bit_true else FIT_SAMPLES
     fit_samples = _check_count(fit_samples, "fit_samples", low=16)

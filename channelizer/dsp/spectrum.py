@@ -39,10 +39,13 @@ __all__ = [
     "Spectrogram",
     "SpectrogramAccumulator",
     "tone_power_dbfs",
+    "power_db",
 ]
 
 #: Default segment length when neither ``resolution`` nor ``nperseg`` is given.
 _DEFAULT_NPERSEG = 1024
+#: Longest segment (bins of one spectrum), bounding the memory a resolution may ask for.
+MAX_NPERSEG = 1 << 20
 #: Most samples (segments x nperseg) transformed in one batch, to bound memory.
 _CHUNK_ELEMENTS = 1 << 21
 
@@ -54,6 +57,11 @@ def _db(power):
     """``10 log10(power)``; zero gives ``-inf`` without a warning."""
     with np.errstate(divide="ignore"):
         return 10.0 * np.log10(power)
+
+
+def power_db(power):
+    """``10 log10(power)`` of one power; a silent input (zero) gives ``-inf``, not an error."""
+    return float(_db(float(power)))
 
 
 def _positive(name, value):
@@ -87,14 +95,19 @@ def _segment_length(fs, resolution, nperseg):
                 f"resolution {format_hz(resolution)} is coarser than half the sample rate {format_hz(fs, 'sps')}"
             )
         target = fs / resolution
+        if target > MAX_NPERSEG:
+            raise ChannelizerError(
+                f"resolution {resolution:g} Hz needs {target:.3g}-point segments at {fs:g} Hz; at most "
+                f"{MAX_NPERSEG} points are allowed (a resolution of at least {fs / MAX_NPERSEG:.4g} Hz)"
+            )
         n = 1
         while n < target * (1.0 - 1e-12):
             n *= 2
         return n
     if nperseg is None:
         return _DEFAULT_NPERSEG
-    if isinstance(nperseg, bool) or not isinstance(nperseg, (int, np.integer)) or nperseg < 2:
-        raise ChannelizerError(f"nperseg must be an integer of at least 2, got {nperseg!r}")
+    if isinstance(nperseg, bool) or not isinstance(nperseg, (int, np.integer)) or not 2 <= nperseg <= MAX_NPERSEG:
+        raise ChannelizerError(f"nperseg must be an integer from 2 to {MAX_NPERSEG}, got {nperseg!r}")
     return int(nperseg)
 
 

@@ -22,8 +22,6 @@ from dataclasses import dataclass
 import json
 import math
 import os
-import shutil
-import tempfile
 
 import numpy as np
 
@@ -32,7 +30,8 @@ from ..errors import ChannelizerError
 from ..planning.hogenauer import _checked_int
 from ..engines.integer_chain import IntegerChain
 from ..io.names import safe_output_name
-from ..planning.plan import Plan
+from ..io.run_folder import StagedFolder, folder_entries
+from ..planning.plan import MAX_COEFFICIENT_BITS, Plan
 from ..planning.response import predict
 from ..planning.stages import CicStage, ResamplerStage, chain_rates
 from ..units import format_hz
@@ -43,7 +42,7 @@ EXPORT_FORMAT = "channelizer-export/1"
 MANIFEST = "manifest.json"
 VECTOR_DIR = "vectors"
 MAX_VECTORS = 10_000_000
-_MAX_COEFFICIENT_BITS = 32
+_MAX_COEFFICIENT_BITS = MAX_COEFFICIENT_BITS  # each is written as a C int32_t
 
 
 @dataclass(frozen=True)
@@ -328,13 +327,9 @@ def _check_out_dir(path):
     parent = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(parent):
         raise ChannelizerError(f"{path}: folder {parent} does not exist")
-    if not os.path.lexists(path):
+    entries = folder_entries(path, hint="; choose another --out")
+    if entries is None:
         return "missing"
-    if os.path.islink(path):
-        raise ChannelizerError(f"{path}: is a symbolic link; give the folder itself or another --out")
-    if not os.path.isdir(path):
-        raise ChannelizerError(f"{path}: exists and is not a folder; choose another --out")
-    entries = os.listdir(path)
     if not entries:
         return "empty"
     manifest = os.path.join(path, MANIFEST)
@@ -356,16 +351,6 @@ def _check_out_dir(path):
                     f"{path}: holds {rel!r}, which the earlier export did not write; move it or choose another --out"
                 )
     return "ours"
-
-
-def _folder_permissions(root):
-    """Give the folders the mode the umask allows (``mkdtemp`` makes them private)."""
-    mask = os.umask(0)
-    os.umask(mask)
-    for folder, _dirs, _files in os.walk(root):
-        os.chmod(folder, 0o777 & ~mask)
-
-
 
 
 # ----------------------------------------------------------------------------- export
@@ -411,7 +396,8 @@ def export_plan(plan, out_dir, *, coefficient_bits=None, vectors=4096, seed=1):
     if coefficient_bits is not None:
         coefficient_bits = _checked_int(coefficient_bits, "coefficient bits", low=2, high=_MAX_COEFFICIENT_BITS)
     out_dir = os.fspath(out_dir)
-    state = _check_out_dir(out_dir)
+    folder = StagedFolder(out_dir, kind="export", check=_check_out_dir)
+    _check_out_dir(out_dir)  # before any work
 
     chain = IntegerChain.from_plan(plan, coefficient_bits=coefficient_bits)
     rates = chain_rates(plan.stages, fs=plan.input_rate)
@@ -455,9 +441,8 @@ def export_plan(plan, out_dir, *, coefficient_bits=None, vectors=4096, seed=1):
     files = tuple(sorted(list(texts) + list(arrays) + [MANIFEST]))
     manifest = {"format": EXPORT_FORMAT, "plan_identity": plan.identity(), "files": list(files)}
 
-    parent = os.path.dirname(os.path.abspath(out_dir))
-    tmp = tempfile.mkdtemp(prefix=".channelizer-export-", suffix=".part", dir=parent)
-    try:
+    # built in a hidden folder beside out_dir, which it replaces in one rename (io.run_folder)
+    with folder.writing() as tmp:
         if vectors:
             os.mkdir(os.path.join(tmp, VECTOR_DIR))
         for rel, text in texts.items():
@@ -466,11 +451,6 @@ def export_plan(plan, out_dir, *, coefficient_bits=None, vectors=4096, seed=1):
             with atomic_output(os.path.join(tmp, rel), "w") as fh:
                 np.savetxt(fh, a, fmt="%d", delimiter=" ")
         write_text_atomic(os.path.join(tmp, MANIFEST), json.dumps(manifest, indent=2) + "\n")
-        _folder_permissions(tmp)
-        _move_into_place(tmp, out_dir, state)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
 
     return ExportReport(
         out_dir=out_dir,
@@ -489,19 +469,3 @@ def export_plan(plan, out_dir, *, coefficient_bits=None, vectors=4096, seed=1):
         predicted_noise_rms=chain.predicted_noise_rms,
         output_scale=chain.output_scale,
     )
-
-
-def _move_into_place(tmp, out_dir, state):
-    """Rename the finished temporary folder to ``out_dir``; an earlier export is removed after."""
-    if state in ("missing", "empty"):
-        os.replace(tmp, out_dir)  # rename(2) may replace an empty folder
-        return
-    parent = os.path.dirname(os.path.abspath(out_dir))
-    old = tempfile.mkdtemp(prefix=".channelizer-export-", suffix=".old", dir=parent)
-    os.replace(out_dir, old)
-    try:
-        os.replace(tmp, out_dir)
-    except BaseException:
-        os.replace(old, out_dir)
-        raise
-    shutil.rmtree(old, ignore_errors=True)

@@ -30,6 +30,12 @@ def _temp_beside(path):
     return fd, tmp
 
 
+def _refuse_folder(path):
+    """An existing folder (or a link to one) at an output's name is never moved aside."""
+    if os.path.isdir(path):
+        raise ChannelizerError(f"{path}: is a folder; an output file never replaces a folder")
+
+
 @contextlib.contextmanager
 def atomic_output(path, mode="wb"):
     """Open a temporary file beside ``path``; rename it to ``path`` on success.
@@ -71,6 +77,7 @@ class FileSet:
     def output(self, path, mode="wb"):
         """Like :func:`atomic_output`, but the rename waits for :meth:`commit`."""
         path = os.fspath(path)
+        _refuse_folder(path)
         fd, tmp = _temp_beside(path)
         try:
             with os.fdopen(fd, mode) as fh:
@@ -94,6 +101,7 @@ class FileSet:
         try:
             for tmp, final in self._pending:
                 backup = None
+                _refuse_folder(final)
                 if os.path.lexists(final):
                     # keep the older file under a second name; a hard link leaves ``final``
                     # in place, so a lone file is replaced in one atomic rename

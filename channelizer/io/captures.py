@@ -14,11 +14,9 @@ block by block, as complex64 (float path) or as stored integers (bit-true path).
 Inputs are never opened for writing.
 """
 
-import contextlib
 import dataclasses
 import json
 import math
-import mmap
 import operator
 import os
 from pathlib import Path
@@ -29,7 +27,8 @@ import numpy as np
 from .datatypes import Datatype, parse_datatype, to_complex64
 from ..errors import shown
 from ..errors import ChannelizerError
-from ..units import format_hz, parse_frequency
+from .sample_reader import SampleFile
+from ..units import check_rate_range, format_hz, parse_frequency
 
 __all__ = ["Capture", "open_capture", "NonfiniteMode"]
 
@@ -87,6 +86,13 @@ class Capture:
     start_datetime: str | None = None
     _map: np.ndarray | None = dataclasses.field(default=None, init=False, repr=False)
 
+    def __post_init__(self):
+        # e.g. core:sample_rate 5e-324: positive and finite, but every later quotient overflows
+        try:
+            check_rate_range(self.sample_rate, "sample rate")
+        except ChannelizerError as exc:
+            raise ChannelizerError(f"{self.path}: {exc}") from None
+
     @property
     def duration(self):
         """Length of the capture in seconds."""
@@ -95,7 +101,7 @@ class Capture:
     # -- access -----------------------------------------------------------------------------------
 
     def _components(self):
-        """The stored components as a read-only memory map of shape (num_samples, 2)."""
+        """The stored components, sliceable like an array of shape (num_samples, 2)."""
         if self._map is None:
             expected = self.data_offset + self.num_samples * self.datatype.itemsize
             try:
@@ -106,20 +112,15 @@ class Capture:
                 raise ChannelizerError(
                     f"{self.data_path}: the file is {size} bytes, {expected} expected; it changed after opening"
                 )
-            try:
-                self._map = np.memmap(
-                    self.data_path,
-                    dtype=self.datatype.numpy_dtype,
-                    mode="r",
-                    offset=self.data_offset,
-                    shape=(self.num_samples, 2),
-                )
-            except OSError as exc:
-                raise ChannelizerError(f"{self.data_path}: cannot map the samples: {exc.strerror}") from None
+            # read with bounds checks, not a memory map: a file truncated by another program
+            # during the run gives an error line, not SIGBUS (channelizer.io.sample_reader)
+            self._map = SampleFile(self.data_path, self.datatype.numpy_dtype, self.data_offset, self.num_samples)
         return self._map
 
     def close(self):
-        """Drop the memory map (it is made again on the next read)."""
+        """Close the sample file (it is opened again on the next read)."""
+        if self._map is not None:
+            self._map.close()
         self._map = None
 
     def __enter__(self):
@@ -187,7 +188,7 @@ class Capture:
         Yields
         ------
         numpy.ndarray
-            complex64 blocks, freshly allocated (the file is mapped read-only).
+            complex64 blocks, freshly allocated (read from the file, never written).
         """
         size = operator.index(block_size)
         if size < 1:
@@ -196,29 +197,11 @@ class Capture:
         _check_mode(nonfinite)
         return self._iter_blocks(self._components(), size, start, stop, nonfinite)
 
-    def _release(self, comps, upto):
-        """Let the kernel drop the mapped pages before sample ``upto``.
-
-        A read-only file mapping keeps every page it has touched resident (and
-        counted in the process's memory) until the mapping closes; streaming a
-        file larger than memory would otherwise look like it holds the whole
-        file.  The pages are re-read from the file if they are needed again.
-        """
-        mm = getattr(comps, "_mmap", None)
-        if mm is None or not hasattr(mm, "madvise"):
-            return
-        base = comps.offset - comps.offset // mmap.ALLOCATIONGRANULARITY * mmap.ALLOCATIONGRANULARITY
-        end = (base + upto * self.datatype.itemsize) // mmap.PAGESIZE * mmap.PAGESIZE
-        if end > 0:
-            with contextlib.suppress(OSError, ValueError):
-                mm.madvise(mmap.MADV_DONTNEED, 0, end)
-
     def _iter_blocks(self, comps, size, start, stop, nonfinite):
         check = not self.datatype.is_integer
         for first in range(start, stop, size):
             last = min(first + size, stop)
             block = to_complex64(comps[first:last], self.datatype)
-            self._release(comps, last)
             if check:
                 self.check_finite(block, first, nonfinite=nonfinite)
             yield block
@@ -260,7 +243,6 @@ class Capture:
             for first in range(start, stop, size):
                 last = min(first + size, stop)
                 block = np.array(comps[first:last], dtype=native)
-                self._release(comps, last)
                 yield block
 
         return iterate()

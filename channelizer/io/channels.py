@@ -11,6 +11,7 @@ import sys
 import yaml
 
 from ..errors import shown
+from ..strict_yaml import safe_load_unique
 from ..errors import ChannelizerError
 from .names import safe_output_name
 from ..units import parse_frequency
@@ -60,7 +61,7 @@ def parse_channel_option(text):
 def parse_channel_list(text, *, source="channel list"):
     """Read a YAML channel list: a list of mappings with ``name``, ``frequency`` and optional ``plan``."""
     try:
-        data = yaml.safe_load(text)
+        data = safe_load_unique(text)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}" if mark else ""

@@ -6,5 +6,5 @@ its alias bands (``response``), the cost model (``cost``), the search over chain
 (``planner``) and the plan file (``plan``: a dataclass that round-trips through YAML text;
 reading and writing the file itself is the caller's job).
 
-May import: ``channelizer.errors`` and ``channelizer.units`` only.
+May import: ``channelizer.errors``, ``channelizer.units`` and ``channelizer.strict_yaml`` only.
 """

@@ -19,6 +19,7 @@ import scipy.signal
 
 from ..errors import ChannelizerError
 from ..units import format_hz
+from .limits import check_time
 from .stages import CicStage, fir_response
 
 __all__ = [
@@ -146,6 +147,7 @@ def _search_length(make, estimate, *, step_limit=40):
     memo = {}
 
     def ok(n):
+        check_time()  # each design of a long filter can take a while: stop when the budget is spent
         if n not in memo:
             memo[n] = make(n)
         return memo[n][0]
@@ -375,6 +377,7 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=
         w = np.ones_like(t)
         a = None
         for _ in range(20):
+            check_time()
             ww = w * w0**2
             gram = (basis * ww[:, None]).T @ basis
             try:

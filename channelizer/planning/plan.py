@@ -6,6 +6,7 @@ edited by hand is refused with a message naming the field when it is wrong.
 """
 
 from dataclasses import dataclass, field
+import difflib
 import hashlib
 import math
 import sys
@@ -14,14 +15,32 @@ import numpy as np
 import yaml
 
 from ..errors import shown
+from ..strict_yaml import safe_load_unique
 from ..errors import ChannelizerError
-from ..units import format_hz
+from ..units import MAX_HZ, MIN_HZ, format_hz
+from .hogenauer import cic_registers
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates, is_halfband
 
-__all__ = ["Plan", "PlanText", "PLAN_FORMAT", "MAX_PLAN_BYTES", "load_plan_text", "stage_to_dict"]
+__all__ = ["Plan", "PlanText", "PLAN_FORMAT", "MAX_PLAN_BYTES", "MAX_COEFFICIENT_BITS", "load_plan_text", "stage_to_dict"]
 
 PLAN_FORMAT = "channelizer-plan/1"
+# The keys a plan may hold, at each level; any other key is refused (a misspelt key
+# such as ``stopband_egde`` would otherwise be ignored silently).
+_PLAN_KEYS = ("format", "input_rate", "output_rate", "bandwidth", "spec", "stages", "predicted")
+_SPEC_KEYS = ("ripple_db", "rejection_db", "objective", "bits", "clock", "stopband_edge")
+_BITS_KEYS = ("input", "output", "coefficient")
+_FIR_KEYS = ("kind", "role", "decimation", "coefficient_bits", "coefficient_frac_bits", "taps")
+_STAGE_KEYS = {
+    "cic": ("kind", "decimation", "order", "differential_delay", "register_bits", "pruned_bits"),
+    "fir": _FIR_KEYS,
+    "halfband": _FIR_KEYS,
+    "resampler": ("kind", "interpolation", "decimation", "coefficient_bits", "coefficient_frac_bits", "taps"),
+}
 MAX_PLAN_BYTES = 16 * 1024 * 1024
+#: Largest tap magnitude: a stage's taps hold its gain, and the chain has unit gain at DC.
+MAX_TAP = 1e6
+#: Widest coefficient a plan may hold: the export writes each as a C ``int32_t``.
+MAX_COEFFICIENT_BITS = 32
 
 
 class PlanText:
@@ -88,9 +107,9 @@ class Plan(PlanText):
             raise ChannelizerError(f"{source}: a filter-bank plan; this command takes a chain plan (run a bank plan with extract --plan)")
         if fmt != PLAN_FORMAT:
             raise ChannelizerError(f"{source}: format must be {PLAN_FORMAT!r}, got {shown(fmt)}")
-        input_rate = v.positive(data, "input_rate")
-        output_rate = v.positive(data, "output_rate")
-        bandwidth = v.positive(data, "bandwidth")
+        input_rate = v.rate(data, "input_rate")
+        output_rate = v.rate(data, "output_rate")
+        bandwidth = v.rate(data, "bandwidth")
         if bandwidth >= output_rate:
             raise ChannelizerError(f"{source}: bandwidth {bandwidth:g} must be below output_rate {output_rate:g}")
         spec_out = v.spec(data)
@@ -118,6 +137,12 @@ class Plan(PlanText):
                 v.fail(f"predicted.{key}", f"expected a number, got {_kind(x)}")
         if "stopband_rejection_db" in predicted and "stopband_edge" not in spec_out:
             v.fail("predicted.stopband_rejection_db", "given, but spec.stopband_edge (what it refers to) is missing")
+        # last, so that a wrong value of a known key is named first
+        v.known(data, _PLAN_KEYS, "")
+        v.known(data["spec"], _SPEC_KEYS, "spec.")
+        v.known(data["spec"]["bits"], _BITS_KEYS, "spec.bits.")
+        for i, s in enumerate(raw_stages):
+            v.known(s, _STAGE_KEYS[s["kind"]], f"stages[{i}].")
         return cls(input_rate, output_rate, bandwidth, spec_out, stages, dict(predicted))
 
     # -------------------------------------------------------------- helpers
@@ -129,7 +154,7 @@ class Plan(PlanText):
 
 
 def load_plan_text(text, *, source="plan"):
-    """Parse a plan file's bytes or text with ``yaml.safe_load``; a one-line error names ``source``.
+    """Parse a plan file's bytes or text with a safe loader refusing repeated keys; a one-line error names ``source``.
 
     Returns the loaded data (not yet validated).
     """
@@ -143,7 +168,7 @@ def load_plan_text(text, *, source="plan"):
     if len(text) > MAX_PLAN_BYTES:
         raise ChannelizerError(f"{source}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
     try:
-        data = yaml.safe_load(text)
+        data = safe_load_unique(text)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
@@ -226,9 +251,35 @@ def _reads_as_float(x):
 class _Validator:
     def __init__(self, source):
         self.source = source
+        self.bits = None  # spec.bits, once read (the CIC widths are checked against them)
 
     def fail(self, where, what):
         raise ChannelizerError(f"{self.source}: {where}: {what}")
+
+    def known(self, d, keys, prefix):
+        """Refuse a key that is not one of ``keys`` (a misspelt key would otherwise be ignored)."""
+        for key in d:
+            if key not in keys:
+                close = difflib.get_close_matches(str(key), keys, n=1)
+                hint = f" (did you mean {close[0]!r}?)" if close else f"; expected one of {', '.join(keys)}"
+                name = key if isinstance(key, str) and key.isidentifier() else shown(key)
+                self.fail(f"{prefix}{name}", f"unknown key{hint}")
+
+    def hogenauer(self, where, order, dec, m, reg, pruned):
+        """A CIC's stated widths must be Hogenauer's for the spec's input and output bits.
+
+        The bit-true chain and the export derive the widths they build by the same rule
+        (from the width that actually enters the CIC), so a plan may not state others.
+        """
+        bits = self.bits
+        regs = cic_registers(order, dec, m, input_bits=bits["input"], output_bits=bits["output"])
+        basis = f"order {order}, decimation {dec}, M {m}, {bits['input']}-bit input"
+        if reg != regs.full_bits:
+            self.fail(f"{where}.register_bits", f"{reg}, but Hogenauer's width for {basis} is {regs.full_bits}; "
+                      f"a plan states the width the chain uses: write {regs.full_bits}")
+        if pruned and tuple(pruned) != regs.discarded:
+            self.fail(f"{where}.pruned_bits", f"{shown(pruned)} differ from Hogenauer's pruning "
+                      f"{list(regs.discarded)} for {basis}, {bits['output']}-bit output; write those or leave the list out")
 
     def number(self, d, key, where=None):
         where = where or key
@@ -246,6 +297,12 @@ class _Validator:
         x = self.number(d, key, where)
         if x <= 0:
             self.fail(where or key, f"must be positive, got {x!r}")
+        return x
+
+    def rate(self, d, key, where=None):
+        x = self.positive(d, key, where)
+        if not MIN_HZ <= x <= MAX_HZ:
+            self.fail(where or key, f"{x:g} Hz is outside the {MIN_HZ:g} to {MAX_HZ:g} Hz this tool works in")
         return x
 
     def integer(self, d, key, where=None, lo=1, hi=None):
@@ -280,11 +337,12 @@ class _Validator:
         bits = self.mapping(spec, "bits", "spec.bits")
         spec_out["bits"] = {k: self.integer(bits, k, f"spec.bits.{k}", lo=1, hi=64) for k in ("input", "output")}
         if "coefficient" in bits:
-            spec_out["bits"]["coefficient"] = self.integer(bits, "coefficient", "spec.bits.coefficient", lo=2, hi=64)
+            spec_out["bits"]["coefficient"] = self.coefficient_width(bits, "coefficient", "spec.bits.coefficient")
         if spec.get("clock") is not None:
-            spec_out["clock"] = self.positive(spec, "clock", "spec.clock")
+            spec_out["clock"] = self.rate(spec, "clock", "spec.clock")
         if spec.get("stopband_edge") is not None:
-            spec_out["stopband_edge"] = self.positive(spec, "stopband_edge", "spec.stopband_edge")
+            spec_out["stopband_edge"] = self.rate(spec, "stopband_edge", "spec.stopband_edge")
+        self.bits = spec_out["bits"]  # the CIC widths are checked against them
         return spec_out
 
     def taps(self, d, where):
@@ -296,12 +354,20 @@ class _Validator:
         for i, x in enumerate(t):
             if isinstance(x, bool) or not isinstance(x, (int, float)) or not _finite(x):
                 self.fail(f"{where}.taps[{i}]", f"expected a finite number, got {_kind(x)}")
+            if abs(x) > MAX_TAP:
+                self.fail(f"{where}.taps[{i}]", f"{x:g} is beyond the +-{MAX_TAP:g} a tap may be (the chain runs in float32)")
         return tuple(float(x) for x in t)
+
+    def coefficient_width(self, d, key, where):
+        b = self.integer(d, key, where, lo=2)
+        if b > MAX_COEFFICIENT_BITS:
+            self.fail(where, f"{b} bits is wider than the {MAX_COEFFICIENT_BITS} an exported coefficient (C int32_t) holds")
+        return b
 
     def coefficient_bits(self, d, where):
         if "coefficient_bits" not in d:
             return None, None
-        b = self.integer(d, "coefficient_bits", f"{where}.coefficient_bits", lo=2, hi=64)
+        b = self.coefficient_width(d, "coefficient_bits", f"{where}.coefficient_bits")
         fb = self.integer(d, "coefficient_frac_bits", f"{where}.coefficient_frac_bits", lo=0, hi=80)
         return b, fb
 
@@ -320,6 +386,7 @@ class _Validator:
                 self.fail(f"{where}.pruned_bits", "expected a list of non-negative integers")
             if pruned and len(pruned) != 2 * order + 1:
                 self.fail(f"{where}.pruned_bits", f"expected {2 * order + 1} entries for order {order}, got {len(pruned)}")
+            self.hogenauer(where, order, dec, m, reg, pruned)
             return CicStage(dec, order, m, reg, tuple(pruned))
         if kind in ("fir", "halfband"):
             dec = self.integer(s, "decimation", f"{where}.decimation", lo=1, hi=1 << 20)

@@ -33,6 +33,7 @@ from .design import (
 from ..errors import ChannelizerError
 from ..units import format_hz
 from .hogenauer import cic_registers
+from .limits import check_time, planning_budget
 from .quantize import quantize_taps
 from .plan import Plan
 from .response import predict
@@ -284,6 +285,7 @@ def _targets(spec):
     return [(d_int, lm, spec.output_rate) for _, _, d_int, lm in options[:4]]
 
 
+@planning_budget
 def plan_chain(spec):
     """Plan the cheapest chain meeting ``spec``.
 
@@ -325,6 +327,7 @@ def plan_chain(spec):
     tried = []
     best_cost = math.inf
     for est, layout, resampler, dp_stage, d_int in candidates[:MAX_DESIGNED]:
+        check_time()
         if est > 3.0 * best_cost and len(tried) >= 4:
             continue
         cand = Candidate(_describe(layout, resampler, spec.stopband_edge), est)

@@ -75,6 +75,11 @@ def run_bank_extraction(
     nonfinite="error",
     block_size=None,
     audit=True,
+    trim_settling=False,
+    audit_resolution=None,
+    workers=None,
+    scheduler=None,
+    inputs=(),
 ):
     """Extract the raster channels of a :class:`BankPlan` (all, or ``entries``) in one pass.
 
@@ -84,6 +89,8 @@ def run_bank_extraction(
     """
     if bit_true:
         raise ChannelizerError("--bit-true does not cover filter-bank plans yet; drop --bit-true or plan a chain")
+    if workers is not None or scheduler is not None:
+        raise ChannelizerError("the filter-bank path runs in one process; drop --workers/--scheduler or plan a chain")
     if not math.isclose(capture.sample_rate, plan.input_rate, rel_tol=1e-9):
         raise ChannelizerError(
             f"{capture.path} runs at {format_hz(capture.sample_rate, 'sps')} but the bank plan {plan_source} expects {format_hz(plan.input_rate, 'sps')}"
@@ -100,7 +107,10 @@ def run_bank_extraction(
         fine_stages=plan.stages,
         fs=plan.input_rate,
     )
-    kw = {"engine": engine}
+    kw = {"engine": engine, "trim_settling": trim_settling}
     if block_size is not None:
         kw["block_size"] = block_size
-    return run_requests(capture, requests, out_dir, (output_format, False, nonfinite, progress, plots, audit), kw)
+    if audit_resolution is not None:
+        kw["audit_resolution"] = audit_resolution
+    reads = [capture.path, capture.data_path, *([plan_source] if plan_source else []), *inputs]
+    return run_requests(capture, requests, out_dir, (output_format, False, nonfinite, progress, plots, audit), kw, inputs=reads)

@@ -10,8 +10,11 @@ from ..io.channels import resolve_offset
 from ..errors import ChannelizerError
 from ..planning.plan import MAX_PLAN_BYTES, Plan
 from ..io.atomic import FileSet
+from ..io.paths import check_outputs, read_regular_file
+from ..io.run_folder import StagedFolder
 from ..units import format_hz
-from .processor import ChannelRequest, extract_channels, plan_identity, write_summary
+from .output_folder import check_run_folder
+from .processor import ChannelRequest, check_requests, extract_channels, plan_identity, write_summary
 
 __all__ = ["load_plan_file", "run_extraction"]
 
@@ -23,15 +26,10 @@ def load_plan_file(path):
 
 
 def read_plan_bytes(path):
-    """The bytes of a plan file, refused when too large to be one."""
-    try:
-        size = os.path.getsize(path)
-        if size > MAX_PLAN_BYTES:
-            raise ChannelizerError(f"{path}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
-        with open(path, "rb") as fh:
-            data = fh.read()
-    except OSError as exc:
-        raise ChannelizerError(f"{path}: cannot read plan ({exc.strerror})") from None
+    """The bytes of a plan file: a regular file, refused when too large to be one."""
+    data = read_regular_file(path, what="plan", limit=MAX_PLAN_BYTES)
+    if len(data) > MAX_PLAN_BYTES:
+        raise ChannelizerError(f"{path}: file is larger than {MAX_PLAN_BYTES // 2**20} MiB; not a plan")
     return data
 
 
@@ -53,6 +51,7 @@ def run_extraction(
     audit_resolution=None,
     workers=None,
     scheduler=None,
+    inputs=(),
 ):
     """Extract ``entries`` (ChannelEntry) from an open capture into ``out_dir``.
 
@@ -63,6 +62,11 @@ def run_extraction(
     listed bandwidth is wider than its plan's passband.  ``workers`` (a local cluster
     of that many processes) or ``scheduler`` (a running cluster's address) runs the
     pass on dask.distributed (:mod:`channelizer.run.distributed`), with the same outputs.
+
+    ``out_dir`` then holds exactly this run: it must be missing, empty or an earlier
+    run (:func:`channelizer.run.output_folder.check_run_folder`), which is replaced
+    as a whole, and it may not be or hold any input (the capture, the plans, and
+    ``inputs``, e.g. the channel list).
     """
     if workers is not None or scheduler is not None:
         from .distributed import check_cluster_options
@@ -92,27 +96,35 @@ def run_extraction(
         from .distributed import distributed_runner
 
         kw["runner"] = distributed_runner(workers=workers, scheduler=scheduler)
-    result = run_requests(capture, requests, out_dir, (output_format, bit_true, nonfinite, progress, plots, audit), kw)
+    result = run_requests(capture, requests, out_dir, (output_format, bit_true, nonfinite, progress, plots, audit), kw,
+                          inputs=[capture.path, capture.data_path, *plans, *inputs])
     result.warnings = warnings
     return result
 
 
-def run_requests(capture, requests, out_dir, options, kw):
-    """Extract ``requests``, write the summary (all committed together) and the plots.
+def run_requests(capture, requests, out_dir, options, kw, *, inputs):
+    """Extract ``requests``, write the summary and the plots: the whole run, or nothing.
 
     ``options`` is ``(output_format, bit_true, nonfinite, progress, plots, audit)``;
-    ``kw`` goes to :func:`extract_channels` (block size, engine or runner, settling, audit resolution).
+    ``kw`` goes to :func:`extract_channels` (block size, engine or runner, settling,
+    audit resolution); ``inputs`` are the files the run reads, never to be written.
     """
     output_format, bit_true, nonfinite, progress, plots, audit = options
-    files = FileSet()  # the recordings and the summary appear together, or not at all
-    try:
-        result = _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)
-        files.commit()
-    except BaseException:
-        files.abort()
-        raise
-    if plots:
-        _plot(result, requests, capture, out_dir)
+    check_requests(capture, requests, bit_true=bit_true, **({"block_size": kw["block_size"]} if "block_size" in kw else {}))
+    check_outputs(folders=[out_dir], inputs=inputs)
+    # the whole run (recordings, summary, plots) is built in a hidden sibling folder and
+    # replaces out_dir in one rename (channelizer.io.run_folder)
+    with StagedFolder(out_dir, kind="run", check=check_run_folder).writing() as stage:
+        files = FileSet()
+        try:
+            result = _extract_and_summarise(capture, requests, stage, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)
+            files.commit()
+        except BaseException:
+            files.abort()
+            raise
+        if plots:
+            _plot(result, requests, capture, stage)
+    result.summary_path = os.path.join(out_dir, os.path.basename(result.summary_path))
     return result
 
 

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..io.atomic import FileSet, write_text_atomic
 from ..errors import ChannelizerError
-from ..io.names import safe_output_name
+from ..io.names import check_output_names, safe_output_name
 from ..dsp.spectrum import WelchAccumulator, _segment_length
 from ..dsp.spaced_welch import SpacedWelch
 from ..planning.response import impulse_seconds
@@ -33,6 +33,11 @@ __all__ = ["ChannelRequest", "ChannelResult", "ExtractResult", "extract_channels
 DEFAULT_BLOCK = 1 << 20
 #: Segments of the overview spectrum, spread evenly over the capture (see dsp/spaced_welch.py).
 OVERVIEW_SEGMENTS = 512
+#: Largest block: each channel holds a few arrays of this many samples.
+MAX_BLOCK = 1 << 24
+#: The files a run writes for itself, and those each channel NAME writes (NAME + suffix).
+RUN_FILES = ("summary.json", "overview.png")
+CHANNEL_SUFFIXES = (".sigmf-data", ".sigmf-meta", ".png")
 
 
 def plan_identity(data):
@@ -124,6 +129,21 @@ def check_channel(capture, req):
         )
 
 
+def check_requests(capture, requests, *, bit_true=False, block_size=DEFAULT_BLOCK):
+    """Refuse a run that cannot be done (names, rates, bands, block size); returns the output names."""
+    if isinstance(block_size, bool) or not isinstance(block_size, int) or not 1 <= block_size <= MAX_BLOCK:
+        raise ChannelizerError(f"block size {block_size!r} must be a whole number of samples from 1 to {MAX_BLOCK}")
+    if not requests:
+        raise ChannelizerError("no channel to extract: give --channel NAME=FREQ or --channels FILE")
+    names = [safe_output_name(r.name) for r in requests]
+    check_output_names(names, suffixes=CHANNEL_SUFFIXES, reserved=RUN_FILES)
+    for r in requests:
+        check_channel(capture, r)
+    if bit_true and not capture.datatype.is_integer:
+        raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
+    return names
+
+
 def _prepare_out_dir(out_dir):
     if os.path.exists(out_dir) and not os.path.isdir(out_dir):
         raise ChannelizerError(f"{out_dir}: exists and is not a folder")
@@ -204,21 +224,12 @@ def extract_channels(
     -------
     ExtractResult
     """
-    if not requests:
-        raise ChannelizerError("no channel to extract: give --channel NAME=FREQ or --channels FILE")
-    names = [safe_output_name(r.name) for r in requests]
-    if len(set(names)) != len(names):
-        dup = sorted({n for n in names if names.count(n) > 1})
-        raise ChannelizerError(f"channel names must be unique; repeated: {', '.join(dup)}")
-    for r in requests:
-        check_channel(capture, r)
-    if bit_true and not capture.datatype.is_integer:
-        raise ChannelizerError(f"{capture.path}: --bit-true needs an integer capture, this one is {capture.datatype.name}")
-    _prepare_out_dir(out_dir)
-    if block_size is None:
+    if block_size is None and requests:
         from .chunks import aligned_block_size
 
         block_size = aligned_block_size([r.plan.stages for r in requests], DEFAULT_BLOCK)
+    names = check_requests(capture, requests, bit_true=bit_true, **({} if block_size is None else {"block_size": block_size}))
+    _prepare_out_dir(out_dir)
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
                 audit_resolution=audit_resolution, engine=engine)
     one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
@@ -339,7 +350,8 @@ class _Pass:
             y, self._skip[k] = y[cut:], self._skip[k] - cut
         if y.size:
             self.writers[k].write(y)
-            settled = y[max(0, self.settle[k] - self.count[k]):]
+            # in float64: a sum of squares of large float32 samples overflows float32
+            settled = y[max(0, self.settle[k] - self.count[k]):].astype(np.complex128)
             self.power[k] += float(np.vdot(settled, settled).real)
             self.count[k] += y.size
             self.peak[k] = max(self.peak[k], float(np.abs(y.view(y.real.dtype)).max()))
@@ -357,8 +369,12 @@ class _Pass:
             else:
                 blocks = cap.blocks(self.block_size, nonfinite=nonfinite)
             done = 0
+            # an overflow shows as a non-finite output, refused below with one line (not numpy warnings)
+            stack.enter_context(np.errstate(over="ignore", invalid="ignore"))
             for i, block in enumerate(blocks):
                 for k, y in enumerate(self._outputs(i, block)):
+                    if y.size and not np.isfinite(y.view(np.float32)).all():
+                        _overflowed(cap, self.names[k], done, block)
                     self.take(k, y)
                 done += block.shape[0]
                 bar.update(done)
@@ -391,6 +407,16 @@ class _Pass:
             )
         ov = self.overview.result() if self.overview is not None and self.overview.segments else None
         return ExtractResult(capture=cap, channels=results, input_samples=cap.num_samples, seconds=seconds, overview=ov)
+
+
+def _overflowed(capture, name, done, block):
+    """A channel's output holds inf or NaN although its input was finite: refuse, naming where."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        peak = float(np.max(np.abs(block.astype(np.complex128)))) if block.size else 0.0
+    raise ChannelizerError(
+        f"{capture.path}: channel {name}: the output is not finite after input sample {done} (samples up to "
+        f"{peak:.3g} of full scale overflow 32-bit float arithmetic); scale the capture down"
+    )
 
 
 def write_summary(result, out_dir, *, extra=None, fileset=None):

@@ -28,10 +28,11 @@ def save_figure(fig, path):
     import matplotlib.pyplot as plt
 
     from ..io.atomic import atomic_output
+    from ..io.paths import figure_format
 
     fig.tight_layout()
     with atomic_output(path, "wb") as fh:
-        fig.savefig(fh, format="png", dpi=110)
+        fig.savefig(fh, format=figure_format(path), dpi=110)
     plt.close(fig)
 
 
