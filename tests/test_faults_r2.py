@@ -265,8 +265,9 @@ def test_loud_capture_reports_its_true_power(tmp_path, plan_path, capsys):
     assert main(_extract(str(base) + ".sigmf-meta", plan_path, out, "a=+0", extra=["--no-plots"])) == 0
     y = np.fromfile(out / "a.sigmf-data", dtype=np.complex64).astype(np.complex128)
     # mean power in dB of full scale, summed in float64 (float32 squares overflow above 1.8e19)
-    expected = 10 * math.log10(np.mean(np.abs(y) ** 2))
-    got = json.loads((out / "summary.json").read_text())["channels"][0]["mean_power_dbfs"]
+    channel = json.loads((out / "summary.json").read_text())["channels"][0]
+    expected = 10 * math.log10(np.mean(np.abs(y[channel["power_from_sample"]:]) ** 2))  # the settled power
+    got = channel["mean_power_dbfs"]
     assert got == pytest.approx(expected, abs=1e-3)
     assert expected > 700  # components of rms 3e37: about 750 dB above full scale
 

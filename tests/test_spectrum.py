@@ -8,7 +8,8 @@ import scipy.signal
 
 from channelizer.dsp import spectrum
 from channelizer.errors import ChannelizerError
-from channelizer.dsp.spectrum import Psd, SpectrogramAccumulator, WelchAccumulator, tone_power_dbfs
+from channelizer.dsp.spectrum import Psd, WelchAccumulator, tone_power_dbfs
+from channelizer.dsp.spectrogram import SpectrogramAccumulator
 from channelizer.dsp.detection import DetectedSignal, channel_list_from_signals, detect_signals, estimate_noise_floor
 
 

@@ -10,7 +10,8 @@ import math
 import numpy as np
 
 from ..io.progress import ProgressBar
-from ..dsp.spectrum import SpectrogramAccumulator, WelchAccumulator
+from ..dsp.spectrum import WelchAccumulator
+from ..dsp.spectrogram import SpectrogramAccumulator
 from ..dsp.detection import FLOOR_REGIONS, channel_list_from_signals, detect_signals, noise_floor_profile
 
 __all__ = ["SurveyResult", "survey_capture", "format_survey", "OCCUPIED_BANDWIDTH_DEFINITION", "UNSCALED_PEAK"]
