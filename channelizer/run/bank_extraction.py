@@ -9,7 +9,6 @@ Each channel's summary, audit and plot use the path it takes as a chain
 
 import math
 
-from ..engines.filterbank import BankChannelizer
 from ..errors import ChannelizerError
 from ..io.channels import resolve_offset
 from ..planning.bank import BankPlan, is_bank_data
@@ -99,6 +98,8 @@ def run_bank_extraction(
     offsets, residuals = plan.offsets(), plan.residuals()
     path = plan.channel_plan()
     requests = [ChannelRequest(name, offsets[i], path, plan_id, plan_source) for name, i in chosen]
+    from ..engines.filterbank import BankChannelizer  # the bank engine loads only for a bank plan
+
     engine = BankChannelizer(
         plan.prototype,
         plan.bins,
