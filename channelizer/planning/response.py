@@ -150,7 +150,9 @@ def _worst(stages, intervals, fs, dc, points_per_band, refine=4, refine_points=2
     for lo, hi, k in intervals:
         by_image.setdefault(k, []).append((lo, hi))
     for k, bands in by_image.items():
-        f = np.concatenate([_grid(lo, hi, points_per_band) for lo, hi in bands])
+        edges = np.array(bands, dtype=float)
+        steps = np.linspace(0.0, 1.0, points_per_band)
+        f = (edges[:, :1] + (edges[:, 1:] - edges[:, :1]) * steps).ravel()
         att = -20.0 * np.log10(np.maximum(np.abs(composite_response(stages, f, fs=fs, image=k)), 1e-300) / dc)
         per_band = att.reshape(len(bands), points_per_band).min(axis=1)
         for b in np.argsort(per_band)[:refine]:
