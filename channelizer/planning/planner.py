@@ -33,7 +33,7 @@ from .response import fold, predict
 from .spec import ChainSpec, ripple_to_delta
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates
 
-__all__ = ["plan_chain", "PlanResult", "Candidate", "MIN_OVERSAMPLING", "default_decimation"]
+__all__ = ["plan_chain", "plan_layout", "PlanResult", "Candidate", "MIN_OVERSAMPLING", "default_decimation"]
 
 #: Without an output rate, the planner picks the largest integer decimation whose
 #: output rate is at least this multiple of the channel bandwidth: the transition band
@@ -461,3 +461,35 @@ def _to_plan(cand, spec):
         stages=cand.stages,
         predicted=predicted,
     )
+
+
+def plan_layout(spec, layout, resampler=None):
+    """Design one given layout ``(R, c, h, d)`` (see :mod:`.layouts`) for ``spec``.
+
+    For comparisons and tests that want a particular chain rather than the
+    cheapest; the stages are designed and checked exactly as the search does.
+
+    Returns
+    -------
+    PlanResult
+        With no alternatives.
+
+    Raises
+    ------
+    ChannelizerError
+        When the layout cannot meet the spec.
+    """
+    est = stage_estimates(layout, fs=spec.input_rate, fp=spec.passband_edge, prot=spec.protected_edge,
+                          dp=spec.passband_delta, ds=spec.stopband_delta, edge=spec.stopband_edge,
+                          resampler=resampler)
+    if est is None:
+        raise ChannelizerError(f"layout {describe(layout, resampler, spec.stopband_edge)} cannot serve this spec")
+    cand = _design_candidate(Candidate(describe(layout, resampler, spec.stopband_edge), sum(est.values())),
+                             layout, resampler, est, spec)
+    if cand.meets:
+        cand.prediction = predict(cand.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
+                                  stopband_edge=spec.stopband_edge)
+        cand.reason = _shortfall(cand.prediction, spec)
+    if cand.reason:
+        raise ChannelizerError(f"layout {cand.layout} does not meet the spec: {cand.reason}")
+    return PlanResult(_to_plan(cand, spec), cand, [])
