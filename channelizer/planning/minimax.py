@@ -94,7 +94,7 @@ def minimax_fit(n, *, fs, f, desired, weight, cap_f=None, cap=None):
     return taps_from_amplitude(n, a), float(np.max(np.abs(b @ a - d) * weight))
 
 
-def lawson_fit(n, *, fs, f, desired, weight, iterations=20):
+def lawson_fit(n, *, fs, f, desired, weight, iterations=12):
     """Near-minimax fit by Lawson's iteratively reweighted least squares: fast, for searching.
 
     Same problem as :func:`minimax_fit` without caps; returns the taps and the largest

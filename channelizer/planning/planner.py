@@ -39,7 +39,7 @@ __all__ = ["plan_chain", "plan_layout", "PlanResult", "Candidate", "MIN_OVERSAMP
 #: output rate is at least this multiple of the channel bandwidth: the transition band
 #: from bw/2 to fs_out - bw/2 is then at least 25 % of the bandwidth wide.
 MIN_OVERSAMPLING = 1.25
-MAX_DESIGNED = 12
+MAX_DESIGNED = 8
 MAX_INTERPOLATION = 64
 MAX_CIC_ORDER = 10
 MAX_RETRIES = 4
@@ -51,6 +51,7 @@ CHEAPER_BY = 0.8
 PRUNE = 1.3
 #: Points per alias band while searching (the chosen chain is checked with the default).
 SEARCH_POINTS = 8
+SEARCH_REFINE = 401
 
 
 @dataclass
@@ -258,7 +259,7 @@ def _design_candidate(cand, layout, resampler, est, spec):
         if stages is None:
             break
         pred = predict(stages, fs=fs, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge,
-                       points_per_band=SEARCH_POINTS)
+                       points_per_band=SEARCH_POINTS, refine_points=SEARCH_REFINE)
         reason = _shortfall(pred, spec)
         if not reason:
             break
@@ -338,8 +339,8 @@ def _cheaper_rates(spec, best, d):
         was = best.cost.total.multiplies_per_input_sample
         if this <= CHEAPER_BY * was:
             c.layout = f"{c.layout} @ {fs / k:.6g} Hz"
-            c.reason = (f"output {fs / k:g} Hz instead of {fs / d:g} Hz: {this:.3g} multiplies per input sample, "
-                        f"{100 * (1 - this / was):.0f} % less (give --output-rate {fs / k:g})")
+            c.reason = (f"output {fs / k:.10g} Hz instead of {fs / d:.10g} Hz: {this:.3g} multiplies per input sample, "
+                        f"{100 * (1 - this / was):.0f} % less (give --output-rate {fs / k:.10g})")
             c.meets = False
             out.append(c)
     return out

@@ -169,10 +169,11 @@ def _worst(stages, intervals, fs, dc, points_per_band, refine=4, refine_points=2
     return worst_db, worst_f
 
 
-def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24):
+def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24, refine_points=2001):
     """Predicted passband ripple and alias rejection of a chain.
 
-    The alias bands are sampled at ``points_per_band`` points each, edges included.
+    The alias bands are sampled at ``points_per_band`` points each, edges included,
+    the worst few again at ``refine_points``.
     With ``stopband_edge`` the rejection of everything landing beyond it is
     computed too.
     """
@@ -183,12 +184,12 @@ def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24):
     mag_pb = np.abs(composite_response(stages, pb, fs=fs))
     ripple = 20.0 * np.log10(mag_pb.max() / mag_pb.min())
     intervals = alias_intervals(stages, fs=fs, bandwidth=bandwidth)
-    worst_db, worst_f = _worst(stages, intervals, fs, dc, points_per_band)
+    worst_db, worst_f = _worst(stages, intervals, fs, dc, points_per_band, refine_points=refine_points)
     adjacent = None
     if stopband_edge is not None:
         fs_out = chain_rates(stages, fs=fs)[-1]
         land = landing_intervals(stages, fs=fs, lo=stopband_edge, hi=fs_out / 2.0)
-        adjacent, _ = _worst(stages, land, fs, dc, points_per_band)
+        adjacent, _ = _worst(stages, land, fs, dc, points_per_band, refine_points=refine_points)
     return Prediction(
         passband_ripple_db=float(ripple),
         alias_rejection_db=float(worst_db),
