@@ -329,7 +329,7 @@ def _cheaper_rates(spec, best, d):
     # the smoothest decimations first: they factor into a CIC and half-bands
     options.sort(key=lambda k: (max(p for p in layouts_primes(k)), -k))
     out = []
-    for k in options[:2]:
+    for k in options[:2]:  # the two smoothest: a planner answer stays fast
         alt = replace(spec, output_rate=fs / k)
         good = [c for c in _search(alt, [(k, None, fs / k)], max_designed=4) if c.meets]
         if not good:
@@ -339,8 +339,8 @@ def _cheaper_rates(spec, best, d):
         was = best.cost.total.multiplies_per_input_sample
         if this <= CHEAPER_BY * was:
             c.layout = f"{c.layout} @ {fs / k:.6g} Hz"
-            c.reason = (f"output {fs / k:.10g} Hz instead of {fs / d:.10g} Hz: {this:.3g} multiplies per input sample, "
-                        f"{100 * (1 - this / was):.0f} % less (give --output-rate {fs / k:.10g})")
+            c.reason = (f"output {fs / k:.10g} Hz (/{k}) instead of {fs / d:.10g} Hz (/{d}): "
+                        f"{this:.3g} multiplies per input sample, {100 * (1 - this / was):.0f} % less")
             c.meets = False
             out.append(c)
     return out
