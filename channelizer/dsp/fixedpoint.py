@@ -82,8 +82,8 @@ class _SampleGate:
 
 
 def _wrap(v, width):
-    """Reduce int64 values to ``width``-bit two's complement (a register of that width)."""
-    if width >= 64:
+    """Reduce int64 (or Python-int object) values to ``width``-bit two's complement."""
+    if width >= 64 and v.dtype != object:
         return v
     sign = 1 << (width - 1)
     return ((v & ((1 << width) - 1)) ^ sign) - sign
@@ -146,10 +146,9 @@ class IntegerCic:
             registers = expected
         else:
             _check_registers(registers, expected)
-        if max(registers.widths) > 64:
-            raise ChannelizerError(
-                f"CIC register width {max(registers.widths)} exceeds the 64 bits of the int64 model"
-            )
+        # Up to 64 bits, int64 arithmetic wrapping modulo 2**64 is exact (see Notes);
+        # wider registers run on Python integers (numpy object arrays): exact, slower.
+        self._dtype = np.int64 if max(registers.widths) <= 64 else object
         self.registers = registers
         self.order = registers.order
         self.decimation = registers.decimation
@@ -173,29 +172,31 @@ class IntegerCic:
         x = self._gate(x)
         trailing = self._gate.trailing
         n, r, m = self.order, self.decimation, self.differential_delay
+        dt = self._dtype
         if self._pending is None:
             self._pending = np.zeros((0,) + trailing, np.int64)
-            self._integrators = [np.zeros(trailing, np.int64) for _ in range(n)]
-            self._combs = [np.zeros((m,) + trailing, np.int64) for _ in range(n)]
+            self._integrators = [np.zeros(trailing, np.int64).astype(dt) for _ in range(n)]
+            self._combs = [np.zeros((m,) + trailing, np.int64).astype(dt) for _ in range(n)]
         buf = np.concatenate([self._pending, x]) if self._pending.size else x
         used = buf.shape[0] // r * r
         self._pending = buf[used:].copy()
-        v = buf[:used]
+        v = buf[:used].astype(dt)
         if used == 0:
             return np.zeros((0,) + trailing, np.int64)
         widths, shifts = self.registers.widths, self._shifts
         for i in range(n):
-            v = np.cumsum(v >> shifts[i], axis=0, dtype=np.int64)
+            v = np.cumsum(v >> shifts[i], axis=0, dtype=dt)
             v += self._integrators[i]
             v = _wrap(v, widths[i])
-            self._integrators[i] = v[-1].copy()
+            self._integrators[i] = v[-1:].reshape(trailing).copy()
         v = v[::r]  # this block starts at a multiple of R: keeps samples 0, R, 2R, ...
         for i in range(n):
             u = v >> shifts[n + i]
             ext = np.concatenate([self._combs[i], u])
             self._combs[i] = ext[-m:].copy()
             v = _wrap(u - ext[: u.shape[0]], widths[n + i])
-        return v >> shifts[2 * n]
+        v = v >> shifts[2 * n]
+        return v.astype(np.int64) if self.output_bits <= 64 else v
 
 
 def _check_registers(registers, expected):
