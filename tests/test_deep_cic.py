@@ -46,3 +46,35 @@ def test_deep_hardware_plan_exports(tmp_path):
     assert plan.stages[0].register_bits > 64
     export_plan(plan, tmp_path / "out")
     assert (tmp_path / "out" / "bit_widths.csv").exists()
+
+
+def test_limbs_against_python_integers():
+    # every limb operation against Python's exact integers (common practice: compare
+    # multi-word arithmetic with arbitrary precision)
+    from channelizer.dsp import wide_int
+
+    rng = np.random.default_rng(7)
+    k, width = 3, 120
+    vals = [int(v) for v in rng.integers(-(2**62), 2**62, size=64)]
+    vals = [v * (1 << 55) + int(rng.integers(0, 2**40)) for v in vals]  # ~117-bit values
+
+    def to_limbs(xs):
+        return wide_int.normalize([np.array([(x >> (32 * i)) & 0xFFFFFFFF for x in xs], dtype=np.int64)
+                                   if i < k - 1 else np.array([x >> (32 * i) for x in xs], dtype=np.int64)
+                                   for i in range(k)])
+
+    def signed(v, w):
+        v &= (1 << w) - 1
+        return v - (1 << w) if v >> (w - 1) else v
+
+    a = to_limbs(vals)
+    assert list(wide_int.join(a, exact=True)) == vals
+    for s in (0, 5, 32, 37, 64, 70):
+        assert list(wide_int.join(wide_int.shift_right(a, s), exact=True)) == [v >> s for v in vals]
+    for w in (100, 96, 70, 64, 40, 20):
+        assert list(wide_int.join(wide_int.wrap(a, w), exact=True)) == [signed(v, w) for v in vals]
+    cs = np.cumsum(np.array(vals, dtype=object))
+    got = wide_int.join(wide_int.wrap(wide_int.cumsum(a), width), exact=True)
+    assert list(got) == [signed(int(v), width) for v in cs]
+    d = wide_int.sub(a, wide_int.take(a, slice(None, None, -1)))
+    assert list(wide_int.join(d, exact=True)) == [x - y for x, y in zip(vals, vals[::-1])]
