@@ -28,6 +28,7 @@ __all__ = [
     "design_decimator",
     "design_compensator",
     "choose_cic_order",
+    "design_kaiser",
     "FirDesign",
 ]
 
@@ -249,6 +250,20 @@ def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=Fals
             return design_decimator(fp, decimation, fs=fs, dp=dp, ds=ds, gain=gain, full_stopband=True, protect=protect)
         return None
     return FirDesign(res[3], res[1], res[2])
+
+
+@functools.lru_cache(maxsize=128)
+def design_kaiser(fp, stop, *, fs, delta, gain=1.0):
+    """Kaiser-window low-pass (scipy.signal.kaiserord / firwin): passband ``[0, fp]``,
+    stopband from ``stop``, deviation ``delta`` on both, passband gain ``gain``.
+
+    For the long filters of a rational stage with a large ``L``, where Parks-McClellan
+    is slow and unreliable; the length follows Kaiser's formula (Kaiser 1974).
+    """
+    atten = -20.0 * math.log10(delta)
+    numtaps, beta = scipy.signal.kaiserord(atten, (stop - fp) / (fs / 2.0))
+    h = scipy.signal.firwin(numtaps, 0.5 * (fp + stop), window=("kaiser", beta), fs=fs)
+    return FirDesign(gain * h / h.sum(), 0.0, 0.0)
 
 
 @functools.lru_cache(maxsize=512)

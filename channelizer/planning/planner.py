@@ -23,7 +23,7 @@ import math
 import numpy as np
 
 from .cost import chain_cost
-from .design import choose_cic_order, design_compensator, design_decimator, design_halfband
+from .design import choose_cic_order, design_compensator, design_decimator, design_halfband, design_kaiser
 from .layouts import carrier, describe, has_final, layouts, ripple_shares, stage_estimates
 from ..errors import ChannelizerError
 from .hogenauer import cic_registers
@@ -40,7 +40,14 @@ __all__ = ["plan_chain", "plan_layout", "PlanResult", "Candidate", "MIN_OVERSAMP
 #: from bw/2 to fs_out - bw/2 is then at least 25 % of the bandwidth wide.
 MIN_OVERSAMPLING = 1.25
 MAX_DESIGNED = 8
-MAX_INTERPOLATION = 64
+MAX_INTERPOLATION = 256
+#: An output rate that is no fraction with a small enough L is met within this.
+RATE_TOLERANCE = 1e-6
+#: Largest L whose filter is designed by Parks-McClellan or linear programming;
+#: beyond, a Kaiser window.
+MAX_DESIGNED_L = 16
+#: A rational stage decimates by at most this many times its L.
+MAX_RATIONAL_DECIMATION = 8
 MAX_CIC_ORDER = 10
 MAX_RETRIES = 4
 #: Default output rate: decimations down to ``d / RATE_SLACK`` are tried too, and
@@ -173,7 +180,17 @@ def _build(layout, spec, resampler, shares, ds_mult, order_add=0):
     if resampler:
         up, down = resampler
         dp_r, ds_r = shares["res"], ds * ds_mult.get("res", 1.0)
-        if carry == "res":
+        if up > MAX_DESIGNED_L:
+            # long polyphase filter: a Kaiser window; the droop must then fit the ripple
+            if carry == "res":
+                droop = 1.0 - abs(cic.response(np.array([fp]), fs=fs)[0])
+                if droop > dp_r:
+                    return None, f"uncompensated CIC droop {20 * math.log10(1 / (1 - droop)):.3f} dB exceeds the ripple"
+                dp_r -= droop
+            fo = rate * up / down
+            stop = edge if edge is not None else fo - prot
+            res = design_kaiser(fp, stop, fs=rate * up, delta=min(dp_r, ds_r), gain=float(up))
+        elif carry == "res":
             res = design_compensator(cic, fp, down, fs_cic=fs, dp=dp_r, ds=ds_r, fs=rate * up, protect=prot,
                                      stop_edge=edge, gain=float(up), fold_rate=rate)
         else:
@@ -207,18 +224,46 @@ def _targets(spec):
         return [(int(ratio), None, spec.output_rate)]
     options = []
     for d_int in range(int(math.floor(ratio)), 0, -1):
-        lm = Fraction(d_int) / ratio  # = L / M, below 1
-        up, down = lm.numerator, lm.denominator
-        if up > MAX_INTERPOLATION:
+        lm = _nearest_fraction(Fraction(d_int) / ratio)  # = L / M, below 1
+        if lm is None:
             continue
+        up, down = lm.numerator, lm.denominator
+        if down > MAX_RATIONAL_DECIMATION * up:
+            continue  # the integer stages should do the bulk of the decimation
         options.append((up, -d_int, d_int, (up, down)))
     if not options:
+        best = Fraction(int(math.floor(ratio))) / ratio
+        near = best.limit_denominator(MAX_INTERPOLATION * 2)
+        got = fs / int(math.floor(ratio)) * float(near)
         raise ChannelizerError(
-            f"output rate {spec.output_rate:g} Hz needs a resampling ratio beyond x{MAX_INTERPOLATION}; "
-            "choose an output rate that is a simpler fraction of the input rate"
+            f"output rate {spec.output_rate:g} Hz is no ratio x L/M with L <= {MAX_INTERPOLATION} within "
+            f"{RATE_TOLERANCE * 1e6:g} ppm; the nearest is {got:.10g} Hz "
+            f"({(got / spec.output_rate - 1) * 1e6:+.2f} ppm): ask for that rate"
         )
     options.sort()
-    return [(d_int, lm, spec.output_rate) for _, _, d_int, lm in options[:4]]
+    return [(d_int, lm, fs / d_int * lm[0] / lm[1]) for _, _, d_int, lm in options[:4]]
+
+
+def _nearest_fraction(x):
+    """``x`` itself when its numerator is at most MAX_INTERPOLATION, else the simplest
+    fraction within RATE_TOLERANCE of it (a convergent of its continued fraction,
+    the best approximations there are: Khinchin, *Continued Fractions*, 1964, from
+    memory); None when there is none with a small enough numerator."""
+    if x.numerator <= MAX_INTERPOLATION:
+        return x
+    a, b = x.numerator, x.denominator
+    h0, h1, k0, k1 = 0, 1, 1, 0
+    while b:
+        q = a // b
+        a, b = b, a - q * b
+        h0, h1 = h1, q * h1 + h0
+        k0, k1 = k1, q * k1 + k0
+        if h1 > MAX_INTERPOLATION:
+            return None
+        c = Fraction(h1, k1)
+        if c and abs(c / x - 1) <= RATE_TOLERANCE:
+            return c
+    return None
 
 
 def _role(stage):
@@ -311,11 +356,15 @@ def _search(spec, targets, max_designed=MAX_DESIGNED):
     ranked.sort(key=lambda t: t[0])
     tried = []
     best_cost = math.inf
-    for total, layout, resampler, est in ranked[:max_designed]:
+    designed = 0
+    for total, layout, resampler, est in ranked[: 3 * max_designed]:
+        if designed >= max_designed:
+            break
         if total > PRUNE * best_cost and len(tried) >= 4:
             continue
         cand = Candidate(describe(layout, resampler, spec.stopband_edge), total)
         tried.append(_design_candidate(cand, layout, resampler, est, spec))
+        designed += bool(cand.stages)
         if cand.meets:
             best_cost = min(best_cost, cand.cost.total.multiplies_per_input_sample)
     return tried
@@ -378,7 +427,8 @@ def plan_chain(spec):
     if not isinstance(spec, ChainSpec):
         raise TypeError("spec must be a ChainSpec")
     targets = _targets(spec)
-    tried = _search(spec, targets)
+    long_filters = any(r is not None and r[0] > MAX_DESIGNED_L for _, r, _ in targets)
+    tried = _search(spec, targets, max_designed=3 if long_filters else MAX_DESIGNED)
     good = sorted((c for c in tried if c.meets), key=lambda c: c.cost.key())
     if not good:
         worst = "; ".join(f"{c.layout}: {c.reason}" for c in tried[:3])
@@ -451,6 +501,8 @@ def _to_plan(cand, spec):
     }
     if spec.clock is not None:
         spec_d["clock"] = float(spec.clock)
+    if spec.output_rate is not None and rates[-1] != spec.output_rate:
+        predicted["output_rate_error_ppm"] = round((rates[-1] / spec.output_rate - 1) * 1e6, 6)
     if spec.stopband_edge is not None:
         spec_d["stopband_edge"] = float(spec.stopband_edge)
         predicted["stopband_rejection_db"] = round(cand.prediction.adjacent_rejection_db, 3)
