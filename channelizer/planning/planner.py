@@ -22,6 +22,7 @@ import math
 
 import numpy as np
 
+from .coeff_search import improve_integers
 from .cost import chain_cost
 from .design import choose_cic_order, design_compensator, design_decimator, design_halfband, design_kaiser
 from .layouts import carrier, describe, has_final, layouts, ripple_shares, stage_estimates
@@ -112,6 +113,8 @@ def _quantize(stage, bits):
         ints[c] += diff // 2
     lim = 2 ** (bits - 1)
     ints = np.clip(ints, -lim, lim - 1)
+    if not (isinstance(stage, FirStage) and stage.kind == "halfband"):
+        ints = improve_integers(ints, np.asarray(stage.taps) * scale, bits=bits)
     taps = tuple(float(i) / scale for i in ints)
     return replace(stage, taps=taps, coefficient_bits=bits, coefficient_frac_bits=q.frac_bits)
 
@@ -395,6 +398,15 @@ def _cheaper_rates(spec, best, d):
     return out
 
 
+def _width_that_meets(spec, targets):
+    """Smallest coefficient width (up to 6 bits more, at most 32) with which the spec is met."""
+    for bits in range(spec.coefficient_bits + 1, min(spec.coefficient_bits + 6, 32) + 1):
+        wider = replace(spec, coefficient_bits=bits)
+        if any(c.meets for c in _search(wider, targets, max_designed=3)):
+            return bits
+    return None
+
+
 def layouts_primes(n):
     """Prime factors of ``n`` (1 for n = 1)."""
     out, p = [], 2
@@ -432,6 +444,12 @@ def plan_chain(spec):
     good = sorted((c for c in tried if c.meets), key=lambda c: c.cost.key())
     if not good:
         worst = "; ".join(f"{c.layout}: {c.reason}" for c in tried[:3])
+        width = _width_that_meets(spec, targets) if spec.objective == "hardware" else None
+        if width is not None:
+            raise ChannelizerError(
+                f"no chain met rejection {spec.rejection_db:g} dB with {spec.coefficient_bits}-bit coefficients "
+                f"({worst}); {width}-bit coefficients meet it"
+            )
         raise ChannelizerError(
             f"no chain met ripple {spec.ripple_db:g} dB and rejection {spec.rejection_db:g} dB ({worst}); "
             "relax the targets or widen the output rate"
