@@ -1,12 +1,13 @@
 """Search for the cheapest multistage decimation chain that meets a spec.
 
 Stages, in order: an optional CIC (order N, delay M, decimation R), a CIC-droop
-compensating FIR (decimating by 1 or 2), zero or more half-bands by 2, a final
-channel FIR (decimating by the rest) and, when the output rate is not an integer
-divisor of the input rate, a rational resampler.  The search walks the
-factorizations of the integer decimation, designs the most promising candidates
-(ranked first by a length estimate), recomputes each candidate's composite
-response and keeps the cheapest one that meets the spec.
+compensating FIR (decimating by a small factor, or 1), zero or more half-bands by 2,
+a final channel FIR (decimating by the rest) and, when the output rate is not an
+integer divisor of the input rate, a rational resampler (L up to 256, or the
+nearest fraction within 1 ppm).  The search walks the layouts of
+:mod:`.layouts`, designs the most promising (ranked by a length estimate), checks
+each candidate's composite response, raises only what falls short, and keeps the
+cheapest that meets the spec.
 
 References
 ----------
