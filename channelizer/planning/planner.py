@@ -50,6 +50,8 @@ RATE_TOLERANCE = 1e-6
 MAX_DESIGNED_L = 16
 #: A rational stage decimates by at most this many times its L.
 MAX_RATIONAL_DECIMATION = 8
+#: Rejection margin of hardware plans, for the bit-true chain's rounding (dB).
+HARDWARE_MARGIN_DB = 0.5
 MAX_CIC_ORDER = 10
 MAX_RETRIES = 4
 #: Default output rate: decimations down to ``d / RATE_SLACK`` are tried too, and
@@ -315,15 +317,16 @@ def _design_candidate(cand, layout, resampler, est, spec):
         if pred.passband_ripple_db > spec.ripple_db * (1 + 1e-9):
             over = ripple_to_delta(pred.passband_ripple_db) / dp
             shares = {k: v / max(over, 1.0) * (0.9 if k != "hb" else 1.0) for k, v in shares.items()}
-        if pred.alias_rejection_db < spec.rejection_db:
-            short = spec.rejection_db - pred.alias_rejection_db
+        need = spec.rejection_db + (HARDWARE_MARGIN_DB if spec.objective == "hardware" else 0.0)
+        if pred.alias_rejection_db < need:
+            short = need - pred.alias_rejection_db
             for role in _culprits(stages, pred.worst_alias_hz, spec):
                 if role == "cic":
                     order_add += 1
                 else:
                     ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + 1.0) / 20)
-        if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < spec.rejection_db:
-            short = spec.rejection_db - pred.adjacent_rejection_db
+        if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < need:
+            short = need - pred.adjacent_rejection_db
             role = _role(stages[-1])
             ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + 1.0) / 20)
     cand.stages = stages or ()
@@ -487,12 +490,14 @@ def plan_chain(spec):
 
 def _shortfall(pred, spec):
     msgs = []
+    # a bit-true chain adds its rounding noise: hardware plans keep a small margin
+    need = spec.rejection_db + (HARDWARE_MARGIN_DB if spec.objective == "hardware" else 0.0)
     if pred.passband_ripple_db > spec.ripple_db * (1 + 1e-9):
         msgs.append(f"ripple {pred.passband_ripple_db:.4f} dB over {spec.ripple_db:g}")
-    if pred.alias_rejection_db < spec.rejection_db:
-        msgs.append(f"rejection {pred.alias_rejection_db:.1f} dB under {spec.rejection_db:g}")
-    if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < spec.rejection_db:
-        msgs.append(f"stopband rejection {pred.adjacent_rejection_db:.1f} dB under {spec.rejection_db:g}")
+    if pred.alias_rejection_db < need:
+        msgs.append(f"rejection {pred.alias_rejection_db:.1f} dB under {need:g}")
+    if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < need:
+        msgs.append(f"stopband rejection {pred.adjacent_rejection_db:.1f} dB under {need:g}")
     return ", ".join(msgs)
 
 
