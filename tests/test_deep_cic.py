@@ -9,6 +9,7 @@ import numpy as np
 
 from channelizer.dsp.fixedpoint import IntegerCic
 from channelizer.planning.hogenauer import cic_registers
+from channelizer.checks.verify import verify_plan
 from channelizer.handoff.export import export_plan
 from channelizer.planning.planner import plan_chain
 from channelizer.planning.spec import ChainSpec
@@ -40,12 +41,16 @@ def test_wide_cic_is_exact_against_python_integers():
     assert any(abs(v) >= 2**63 for v in want)
 
 
-def test_deep_hardware_plan_exports(tmp_path):
-    # 61.44 MHz to 25 kHz plans a CIC/1024 of order 6: registers of about 76 bits
+def test_deep_hardware_plan_exports_and_verifies_bit_true(tmp_path):
+    # 61.44 MHz to 25 kHz plans a CIC/1024 of order 6: 16 + 6 log2(1024) = 76-bit
+    # registers (Hogenauer 1981)
     plan = plan_chain(ChainSpec(input_rate=61.44e6, bandwidth=20e3, output_rate=25e3, objective="hardware")).plan
-    assert plan.stages[0].register_bits > 64
+    assert plan.stages[0].register_bits == 16 + 6 * 10
     export_plan(plan, tmp_path / "out")
     assert (tmp_path / "out" / "bit_widths.csv").exists()
+    # a short tone sweep through the bit-true chain (the full one takes minutes)
+    v = verify_plan(plan, bit_true=True, tones=6)
+    assert v.meets_spec, (v.measured_ripple_db, v.measured_rejection_db)
 
 
 def test_limbs_against_python_integers():
