@@ -383,7 +383,7 @@ def _cheaper_rates(spec, best, d):
     lo = max(2, int(math.ceil(d / RATE_SLACK)))
     options = [k for k in range(d - 1, lo - 1, -1)]
     # the smoothest decimations first: they factor into a CIC and half-bands
-    options.sort(key=lambda k: (max(p for p in layouts_primes(k)), -k))
+    options.sort(key=lambda k: (max(p for p in _prime_factors(k)), -k))
     out = []
     for k in options[:2]:  # the two smoothest: a planner answer stays fast
         alt = replace(spec, output_rate=fs / k)
@@ -411,7 +411,7 @@ def _width_that_meets(spec, targets):
     return None
 
 
-def layouts_primes(n):
+def _prime_factors(n):
     """Prime factors of ``n`` (1 for n = 1)."""
     out, p = [], 2
     while p * p <= n:
