@@ -447,10 +447,18 @@ def _cmd_bench(args):
         for row in planner["specs"]:
             print(f"  {row['seconds']:7.3f} s  {row['layout']:<28} {row['spec']}")
         print(f"  worst {planner['worst_s']:.3f} s (target < {planner['target_s']:g} s): {'met' if planner['met'] else 'MISSED'}\n")
+        from .bench.engine_cost import compare
+
+        costs = compare()
+        print("float engine: predicted multiplies vs measured time per input sample:")
+        for row in costs["rows"]:
+            print(f"  {row['predicted']:7.2f} mult  {row['ns_per_sample']:7.2f} ns  {row['layout']:<28} {row['spec']}")
+        print(f"  ranking {'agrees' if costs['agree'] else 'DIFFERS'} (Spearman {costs['spearman']:.2f})\n")
         report = run_benchmark(seconds=args.seconds or 2.0, channels=args.channels, progress=not args.quiet, workers=args.workers)
         print(format_report(report))
         doc = report.to_dict()
         doc["planner"] = planner
+        doc["engine_cost"] = costs
     if args.json:
         write_text_atomic(args.json, json.dumps(doc, indent=2) + "\n")
         print(f"figures written to {args.json}")

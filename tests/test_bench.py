@@ -217,3 +217,15 @@ def test_generated_capture_is_deterministic_and_holds_the_tones(tmp_path):
     # each tone's peak within one bin of its frequency (Hann window, common practice)
     for got, want in zip(top, sorted(tones)):
         assert abs(got - want) <= SAMPLE_RATE / n
+
+
+def test_engine_cost_counts_what_the_runners_do():
+    # a CIC runs as its boxcar-power FIR: N (R M - 1) + 1 taps per output (Hogenauer
+    # 1981); a polyphase rational stage len(h) / L per output; mixing one per input
+    from channelizer.bench.engine_cost import engine_multiplies
+    from channelizer.planning.stages import CicStage, FirStage, ResamplerStage
+
+    stages = (CicStage(49, 4), FirStage(5, tuple([0.01] * 85)), ResamplerStage(3, 5, tuple([0.1] * 60)))
+    fs = 61.44e6
+    want = 1 + (4 * 48 + 1) / 49 + 85 / 245 + (60 / 3) / (245 * 5 / 3)
+    assert engine_multiplies(stages, fs=fs) == pytest.approx(want, rel=1e-12)

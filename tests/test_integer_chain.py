@@ -1,5 +1,7 @@
 """The bit-true chain against scipy.signal.upfirdn, Hogenauer's widths and its own noise prediction."""
 
+import math
+
 import numpy as np
 import pytest
 import scipy.signal
@@ -12,7 +14,7 @@ from channelizer.planning.hogenauer import cic_registers
 from channelizer.engines.integer_chain import IntegerChain
 from channelizer.engines.bit_widths import BitWidthTable
 from channelizer.planning.plan import PLAN_FORMAT, Plan
-from channelizer.planning.planner import plan_chain
+from channelizer.planning.planner import plan_chain, plan_layout
 from channelizer.planning.spec import ChainSpec
 from channelizer.planning.stages import CicStage
 
@@ -27,13 +29,14 @@ def rng():
 @pytest.fixture(scope="module")
 def hardware_plan():
     """CIC/25 -> compensator -> resampler x3/5, coefficients already quantised to 18 bits."""
-    return plan_chain(ChainSpec(input_rate=2.4e6, bandwidth=12.5e3, output_rate=57.6e3, objective="hardware")).plan
+    spec = ChainSpec(input_rate=2.4e6, bandwidth=12.5e3, output_rate=57.6e3, objective="hardware")
+    return plan_layout(spec, (25, 1, 0, 1), (3, 5)).plan
 
 
 @pytest.fixture(scope="module")
 def cpu_plan():
     """CIC/25 -> compensator/2 with floating-point taps."""
-    return plan_chain(ChainSpec(input_rate=2.4e6, bandwidth=12.5e3, output_rate=48e3)).plan
+    return plan_layout(ChainSpec(input_rate=2.4e6, bandwidth=12.5e3, output_rate=48e3, ripple_db=0.05), (25, 2, 0, 1)).plan
 
 
 def _plan(stages, *, input_rate, output_rate, bandwidth=12.5e3, bits=16):
@@ -198,7 +201,7 @@ def test_widths_at_every_point(hardware_plan):
         assert b.input_bits == a.output_bits
     # The CIC's registers come from cic_registers at the widths around it, plus one bit.
     cic = table["stage1_cic"]
-    regs = cic_registers(4, 25, input_bits=19, output_bits=19)
+    regs = cic_registers(hardware_plan.stages[0].order, 25, input_bits=19, output_bits=19)
     assert cic.pruned_bits == regs.discarded
     assert cic.integrator_bits + cic.comb_bits == tuple(w + 1 for w in regs.widths)
     csv = table.to_csv().splitlines()
@@ -343,13 +346,15 @@ def test_output_scale_gives_unit_dc_gain():
     # The chain has unit gain at DC (DEVELOPERS.md); output_scale carries the CIC's
     # (R M)^N / 2^ceil(N log2 RM) = 25^4 / 2^19 (Hogenauer 1981).  CIC/25 -> compensator/2
     # whose quantised taps sum to exactly 2^frac (a resampler's phases need not).
-    plan = plan_chain(ChainSpec(input_rate=2.4e6, bandwidth=12.5e3, output_rate=48e3, objective="hardware")).plan
+    spec = ChainSpec(input_rate=2.4e6, bandwidth=12.5e3, output_rate=48e3, objective="hardware")
+    plan = plan_layout(spec, (25, 2, 0, 1)).plan
     chain = IntegerChain.from_plan(plan)
+    order = plan.stages[0].order
     level = 12_345
     y = chain.process(np.full((60_000, 2), level))
     settled = y[-100:] * chain.output_scale
     assert np.all(np.abs(settled - level / 2**15) < 4 * chain.predicted_noise_rms)
-    assert chain.output_scale == pytest.approx(2.0**-15 * 2**19 / 25**4, rel=1e-12)
+    assert chain.output_scale == pytest.approx(2.0**-15 * 2 ** math.ceil(order * math.log2(25)) / 25**order, rel=1e-12)
 
 
 # --------------------------------------------------------------- refusals

@@ -222,10 +222,17 @@ def test_bit_true_agrees_within_its_floor(relay):
     assert all(-115.0 < t.floor_db < -95.0 for t in v.aliases if abs(t.landing_hz) > 1e3)
 
 
-def test_bit_true_refuses_what_the_integer_model_cannot_hold():
-    pytest.importorskip("channelizer.engines.integer_chain")
-    with pytest.raises(ChannelizerError, match="bits"):
-        verify_plan(_load(RATIONAL), bit_true=True, tones=4)
+def test_bit_true_holds_registers_wider_than_64_bits():
+    # the rational example's CIC/1024 needs registers beyond int64 (Hogenauer 1981:
+    # B_in + N log2(R M)); the integer model now holds them (multi-word arithmetic)
+    integer_chain = pytest.importorskip("channelizer.engines.integer_chain")
+    chain = integer_chain.IntegerChain.from_plan(_load(RATIONAL))
+    cic = chain.widths["stage1_cic"]
+    assert max(cic.integrator_bits) > 64
+    x = np.zeros((1024 * 300, 2), np.int64)
+    x[:, 0] = 2**14
+    y = chain.process(x) * chain.output_scale
+    assert abs(y[-1, 0] - 0.5) < 1e-3  # unit DC gain (DEVELOPERS.md)
 
 
 # ----------------------------------------------------------------------------- results and figure

@@ -29,6 +29,7 @@ import numbers
 import numpy as np
 
 from ..errors import ChannelizerError
+from . import wide_int
 from ..planning.hogenauer import CicRegisters, cic_registers, _checked_int as _int
 
 __all__ = [
@@ -146,10 +147,9 @@ class IntegerCic:
             registers = expected
         else:
             _check_registers(registers, expected)
-        if max(registers.widths) > 64:
-            raise ChannelizerError(
-                f"CIC register width {max(registers.widths)} exceeds the 64 bits of the int64 model"
-            )
+        # Up to 64 bits, int64 arithmetic wrapping modulo 2**64 is exact (see Notes);
+        # wider registers run on 32-bit limbs (wide_int): exact, a few times slower.
+        self._limbs = wide_int.limbs_for(max(registers.widths))
         self.registers = registers
         self.order = registers.order
         self.decimation = registers.decimation
@@ -191,28 +191,51 @@ class IntegerCic:
         trailing = self._gate.trailing
         n, r, m = self.order, self.decimation, self.differential_delay
         if self._pending is None:
+            k = self._limbs
+            zeros = np.zeros(trailing, np.int64)
             self._pending = np.zeros((0,) + trailing, np.int64)
-            self._integrators = [np.zeros(trailing, np.int64) for _ in range(n)]
-            self._combs = [np.zeros((m,) + trailing, np.int64) for _ in range(n)]
+            self._integrators = [wide_int.split(zeros, k) for _ in range(n)]
+            self._combs = [wide_int.split(np.zeros((m,) + trailing, np.int64), k) for _ in range(n)]
         buf = np.concatenate([self._pending, x]) if self._pending.size else x
         used = buf.shape[0] // r * r
         self._pending = buf[used:].copy()
-        v = buf[:used]
         if used == 0:
             return np.zeros((0,) + trailing, np.int64)
+        if self._limbs == 1:
+            return self._run_int64(buf[:used])
+        return self._run_limbs(buf[:used])
+
+    def _run_int64(self, v):
+        n, r, m = self.order, self.decimation, self.differential_delay
         widths, shifts = self.registers.widths, self._shifts
         for i in range(n):
             v = np.cumsum(v >> shifts[i], axis=0, dtype=np.int64)
-            v += self._integrators[i]
+            v += self._integrators[i][0]
             v = _wrap(v, widths[i])
-            self._integrators[i] = v[-1].copy()
+            self._integrators[i] = [v[-1].copy()]
         v = v[::r]  # this block starts at a multiple of R: keeps samples 0, R, 2R, ...
         for i in range(n):
             u = v >> shifts[n + i]
-            ext = np.concatenate([self._combs[i], u])
-            self._combs[i] = ext[-m:].copy()
+            ext = np.concatenate([self._combs[i][0], u])
+            self._combs[i] = [ext[-m:].copy()]
             v = _wrap(u - ext[: u.shape[0]], widths[n + i])
         return v >> shifts[2 * n]
+
+    def _run_limbs(self, x):
+        n, r, m = self.order, self.decimation, self.differential_delay
+        widths, shifts = self.registers.widths, self._shifts
+        v = wide_int.split(x, self._limbs)
+        for i in range(n):
+            v = wide_int.cumsum(wide_int.shift_right(v, shifts[i]))
+            v = wide_int.wrap(wide_int.add(v, [s[None] for s in self._integrators[i]]), widths[i])
+            self._integrators[i] = [l[-1].copy() for l in v]
+        v = wide_int.take(v, slice(None, None, r))
+        for i in range(n):
+            u = wide_int.shift_right(v, shifts[n + i])
+            ext = [np.concatenate([c, l]) for c, l in zip(self._combs[i], u)]
+            self._combs[i] = [e[-m:].copy() for e in ext]
+            v = wide_int.wrap(wide_int.sub(u, wide_int.take(ext, slice(0, u[0].shape[0]))), widths[n + i])
+        return wide_int.join(wide_int.shift_right(v, shifts[2 * n]), exact=self.output_bits > 64)
 
 
 def _check_registers(registers, expected):

@@ -87,8 +87,6 @@ __all__ = ["IntegerChain", "DEFAULT_COEFFICIENT_BITS"]
 #: Coefficient width used when neither the stage nor ``plan.spec['bits']`` gives one
 #: (the planner's default).
 DEFAULT_COEFFICIENT_BITS = 18
-#: Register width beyond which the int64 model (and its rounding constant) is not exact.
-_MAX_REGISTER_BITS = 63
 #: Most points on the frequency grid of the coefficient-error bound.
 _MAX_GRID = 1 << 18
 
@@ -358,11 +356,6 @@ class IntegerChain:
                 nominal = cic_registers(st.order, st.decimation, st.differential_delay,
                                         input_bits=width, output_bits=max(ob, 1))
                 regs, shift = _cic_guarded(nominal)
-                if max(regs.widths) > _MAX_REGISTER_BITS:
-                    raise ChannelizerError(
-                        f"stage {i} (cic): registers of {max(regs.widths)} bits exceed the "
-                        f"{_MAX_REGISTER_BITS} bits the integer model holds; use fewer input bits"
-                    )
                 cic = IntegerCic(st.order, st.decimation, st.differential_delay, input_bits=width,
                                  output_bits=regs.output_bits, registers=regs)
                 points.append(_CicPoint(cic, shift, w_out))

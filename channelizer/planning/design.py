@@ -20,6 +20,7 @@ import scipy.signal
 from ..errors import ChannelizerError
 from ..units import format_hz
 from .limits import check_time
+from .minimax import lawson_fit, minimax_fit
 from .stages import CicStage, fir_response
 
 __all__ = [
@@ -29,10 +30,14 @@ __all__ = [
     "design_decimator",
     "design_compensator",
     "choose_cic_order",
+    "design_kaiser",
     "FirDesign",
 ]
 
 MAX_TAPS = 4001
+#: Longest compensator shortened by the exact (linear-programming) fit; longer ones
+#: keep the near-minimax fit, where a tap or two matters less.
+MAX_LP_TAPS = 100
 
 
 def alias_bands(fs, decimation, fp):
@@ -76,7 +81,8 @@ def _check(taps, *, fs, fp, stopbands, dp, ds, target=None, gain=1.0, shaping=No
     """Does a design meet its bands?  Returns (ok, passband error, stopband peak).
 
     The response is taken on a dense FFT grid (at least 16 points per tap) plus
-    the exact band edges.
+    the exact band edges.  With ``shaping`` (the response of the stages before),
+    the stopband is judged on the product, as the chain sees it.
     """
     h = np.asarray(taps, dtype=float)
     if not np.all(np.isfinite(h)):
@@ -87,6 +93,8 @@ def _check(taps, *, fs, fp, stopbands, dp, ds, target=None, gain=1.0, shaping=No
     grid = np.arange(mag.size) * fs / nfft
     edges = [fp] + [e for band in stopbands for e in band]
     mag_e = np.abs(fir_response(h, np.array(edges), fs=fs)) / gain
+    if shaping is not None:
+        mag_e[1:] *= shaping(np.array(edges[1:]))
     sel = grid <= fp
     f_pb = np.concatenate([grid[sel], [fp]])
     h_pb = np.concatenate([mag[sel], mag_e[:1]])
@@ -96,7 +104,8 @@ def _check(taps, *, fs, fp, stopbands, dp, ds, target=None, gain=1.0, shaping=No
     for lo, hi in stopbands:
         sel = (grid >= lo) & (grid <= hi)
         if np.any(sel):
-            sb_peak = max(sb_peak, float(np.max(mag[sel])))
+            sb = mag[sel] if shaping is None else mag[sel] * shaping(grid[sel])
+            sb_peak = max(sb_peak, float(np.max(sb)))
     # nowhere may the stage (times ``shaping``, the response before it) amplify
     # beyond its passband gain, don't-care bands included
     over = float(np.max(mag if shaping is None else mag * shaping(grid)))
@@ -138,11 +147,12 @@ def _remez(numtaps, fp, stopbands, fs, dp, ds, gain):
     return h
 
 
-def _search_length(make, estimate, *, step_limit=40):
+def _search_length(make, estimate, *, step_limit=40, even=False):
     """Smallest odd length for which ``make(n)`` meets its target, starting near ``estimate``.
 
     Brackets the answer by steps of about 5 % from the estimate, then bisects, so a
-    typical stage costs a handful of designs.
+    typical stage costs a handful of designs.  With ``even``, the even length just
+    below the odd answer is tried too (a type II filter, one tap shorter).
     """
     memo = {}
 
@@ -182,6 +192,8 @@ def _search_length(make, estimate, *, step_limit=40):
             hi = mid
         else:
             lo = mid
+    if even and hi > 3 and ok(hi - 1):
+        hi -= 1
     return hi, memo[hi]
 
 
@@ -235,12 +247,26 @@ def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=Fals
         h = _remez(n, fp, bands, fs, dp, ds, gain)
         return _check(h, fs=fs, fp=fp, stopbands=bands, dp=dp, ds=ds, gain=gain) + (h,)
 
-    n, res = _search_length(make, est)
+    n, res = _search_length(make, est, even=True)
     if n is None:
         if not full_stopband and stop_edge is None:
             return design_decimator(fp, decimation, fs=fs, dp=dp, ds=ds, gain=gain, full_stopband=True, protect=protect)
         return None
     return FirDesign(res[3], res[1], res[2])
+
+
+@functools.lru_cache(maxsize=128)
+def design_kaiser(fp, stop, *, fs, delta, gain=1.0):
+    """Kaiser-window low-pass (scipy.signal.kaiserord / firwin): passband ``[0, fp]``,
+    stopband from ``stop``, deviation ``delta`` on both, passband gain ``gain``.
+
+    For the long filters of a rational stage with a large ``L``, where Parks-McClellan
+    is slow and unreliable; the length follows Kaiser's formula (Kaiser 1974).
+    """
+    atten = -20.0 * math.log10(delta)
+    numtaps, beta = scipy.signal.kaiserord(atten, (stop - fp) / (fs / 2.0))
+    h = scipy.signal.firwin(numtaps, 0.5 * (fp + stop), window=("kaiser", beta), fs=fs)
+    return FirDesign(gain * h / h.sum(), 0.0, 0.0)
 
 
 @functools.lru_cache(maxsize=512)
@@ -301,34 +327,46 @@ def design_halfband(fp, *, fs, delta):
             return None
 
 
-def choose_cic_order(decimation, *, fs, fp, ds, differential_delay=1, max_order=8):
+def choose_cic_order(decimation, *, fs, fp, ds, differential_delay=1, max_order=8, compensated=True, min_order=1):
     """Smallest CIC order whose alias bands are all attenuated below ``ds``.
 
-    The CIC alone carries the rejection of the bands ``k fs/R +- fp``; the worst
-    point of each is its inner edge (Hogenauer 1981).  Returns None when even
-    ``max_order`` is not enough.
+    The CIC alone carries the rejection of the bands ``k fs/R +- fp``, which land on
+    the passband after decimation (Hogenauer 1981).  An input at ``k fs/R + g`` lands
+    at ``g``, where a droop compensator later boosts it by ``1/|H(g)|``; with
+    ``compensated`` the order is chosen on that ratio ``|H(k fs/R + g)| / |H(g)|``.
+    Returns None when even ``max_order`` is not enough.
     """
-    bands = alias_bands(fs, decimation, fp)
-    f = np.concatenate([_dense(lo, hi, 16) for lo, hi in bands])
-    for order in range(1, max_order + 1):
+    fo = fs / decimation
+    g = _dense(-fp, fp, 33)
+    ks = np.arange(1, int(math.ceil((fs / 2.0 + fp) / fo)) + 1)
+    x = (ks[:, None] * fo + g[None, :]).ravel()
+    keep = x <= fs / 2.0
+    x, gl = x[keep], np.broadcast_to(g, (ks.size, g.size)).ravel()[keep]
+    for order in range(max(1, min_order), max_order + 1):
         st = CicStage(decimation=decimation, order=order, differential_delay=differential_delay)
-        if float(np.max(np.abs(st.response(f, fs=fs)))) <= ds:
+        att = np.abs(st.response(x, fs=fs))
+        if compensated:
+            att = att / np.abs(st.response(gl, fs=fs))
+        if float(np.max(att)) <= ds:
             return order
     return None
 
 
 @functools.lru_cache(maxsize=256)
-def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=None, stop_edge=None):
-    """FIR whose passband is ``1/|H_cic|`` on ``[0, fp]``: it undoes the CIC's droop.
+def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=None, stop_edge=None,
+                       gain=1.0, fold_rate=None):
+    """FIR whose passband is ``gain / |H_cic|`` on ``[0, fp]``: it undoes the CIC's droop.
 
-    Minimax fit by Lawson's algorithm (iteratively reweighted least squares) of a
-    symmetric odd-length FIR running at ``fs`` (default: the CIC's output rate).
-    Its stopbands are the alias bands of its own decimation; without decimation
-    the band ``[fs/2 - fp, fs/2]`` is kept low as a guard so that the stage never
-    amplifies.  Used both for a separate compensator and for a channel FIR that
-    carries the compensation itself.  ``protect`` is the half-width kept free of
-    aliases (default ``fp``); ``stop_edge`` makes the stopband run from there to
-    ``fs/2`` (a final stage that also removes the neighbours).
+    A true minimax fit (linear programming, :func:`minimax.minimax_fit`) of a symmetric
+    FIR of any length running at ``fs`` (default: the CIC's output rate).  Its
+    stopbands are the alias bands of its own decimation (or everything from
+    ``stop_edge`` to ``fs/2``, a final stage that also removes the neighbours).  A
+    stage that does not decimate has no stopband: it only may not amplify, i.e. the
+    CIC times the stage stays at or below the passband gain everywhere.  The same
+    bound holds in every don't-care band of any stage.  ``fold_rate`` is the stage's
+    input rate when it differs from ``fs`` (a rational stage whose filter runs at
+    ``L`` times its input rate, passband gain ``gain = L``); ``protect`` is the
+    half-width kept free of aliases (default ``fp``).
 
     Returns
     -------
@@ -336,63 +374,69 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=
 
     References
     ----------
-    C. L. Lawson, "Contributions to the theory of linear least maximum
-    approximation", Ph.D. thesis, UCLA, 1961 (from memory); the CIC response is
-    Hogenauer's (1981).
+    L. R. Rabiner, "Linear program design of finite impulse response (FIR) digital
+    filters", IEEE Trans. Audio Electroacoust. 20(4):280-288, 1972 (from memory); the
+    CIC response is Hogenauer's (1981).
     """
     fs = fs_cic / cic.decimation if fs is None else fs
+    fold_rate = fs if fold_rate is None else fold_rate
     protect = fp if protect is None else protect
     if stop_edge is not None:
         stop = [(stop_edge, fs / 2.0)]
-        ds_stage = ds
     elif decimation == 1:
-        if protect >= fs / 4.0:
-            return None
-        stop = [(fs / 2.0 - protect, fs / 2.0)]
-        ds_stage = max(ds, 1e-2)
+        stop = []
     else:
         stop = _merge(alias_bands(fs, decimation, protect), min_gap=0.0)
         if stop[0][0] <= fp:
             return None
-        ds_stage = ds
 
     def target(f):
         return 1.0 / np.abs(cic.response(f, fs=fs_cic))
 
     def shaping(f):
-        return np.abs(cic.response(f, fs=fs_cic))
+        g = (np.asarray(f) + fold_rate / 2.0) % fold_rate - fold_rate / 2.0
+        return np.abs(cic.response(g, fs=fs_cic))
 
-    def make(n):
-        k = (n - 1) // 2
-        pts = max(60, 3 * k)
-        f_pb = _dense(0.0, fp, 2 * pts)
-        f_sb = np.concatenate([_dense(lo, hi, pts * max(1.0, (hi - lo) / fp)) for lo, hi in stop])
+    def make(n, fast=False):
+        per_hz = 12.0 * n / fs  # grid density: 12 points per cycle of the ripple (remez uses 16)
+        f_pb = _dense(0.0, fp, 16 + per_hz * fp)
         t_pb = target(f_pb)
-        idx = np.arange(k + 1)
+        f_sb = np.concatenate([_dense(lo, hi, 8 + per_hz * (hi - lo)) for lo, hi in stop]) if stop else np.zeros(0)
         f = np.concatenate([f_pb, f_sb])
-        basis = np.cos(2 * np.pi * np.outer(f, idx) / fs)
-        basis[:, 1:] *= 2.0
-        t = np.concatenate([t_pb, np.zeros_like(f_sb)])
-        w0 = np.concatenate([1.0 / (dp * t_pb), np.full(f_sb.size, 1.0 / ds_stage)])
-        w = np.ones_like(t)
-        a = None
-        for _ in range(20):
-            check_time()
-            ww = w * w0**2
-            gram = (basis * ww[:, None]).T @ basis
-            try:
-                a = np.linalg.solve(gram, (basis * ww[:, None]).T @ t)
-            except np.linalg.LinAlgError:
-                a = np.linalg.lstsq(basis * np.sqrt(ww)[:, None], t * np.sqrt(ww), rcond=None)[0]
-            e = np.abs(basis @ a - t) * w0
-            w = w * e
-            w /= w.sum()
-            w = np.maximum(w, 1e-12)
-        h = np.concatenate([a[:0:-1], [a[0]], a[1:]])
-        return _check(h, fs=fs, fp=fp, stopbands=stop, dp=dp, ds=ds_stage, target=target, shaping=shaping) + (h,)
+        want = np.concatenate([gain * t_pb, np.zeros(f_sb.size)])
+        # the CIC before already attenuates the stopband: only the product must reach ds
+        weight = np.concatenate([1.0 / (dp * gain * t_pb), shaping(f_sb) / (gain * ds)])
+        lo = fp + 0.25 * fs / n if not stop else fp
+        cap_f = _dense(lo, fs / 2.0, 3 * n)
+        if stop:
+            inside = np.zeros(cap_f.size, bool)
+            for a, b in stop:
+                inside |= (cap_f >= a) & (cap_f <= b)
+            cap_f = cap_f[~inside]
+        cap = gain * (1.0 + dp) / np.maximum(shaping(cap_f), 1e-3)
+        check_time()  # the planner's CPU-time budget (planning/limits.py)
+        if fast:
+            h, err = lawson_fit(n, fs=fs, f=f, desired=want, weight=weight)
+        else:
+            h, err = minimax_fit(n, fs=fs, f=f, desired=want, weight=weight, cap_f=cap_f, cap=cap)
+        if h is None or err > 1.0:
+            return False, math.inf, math.inf, h
+        return _check(h, fs=fs, fp=fp, stopbands=stop, dp=dp, ds=ds, target=target, shaping=shaping, gain=gain) + (h,)
 
-    est = herrmann_length(dp, ds_stage, (stop[0][0] - fp) / fs)
-    n, res = _search_length(make, est, step_limit=30)
+    est = herrmann_length(dp, ds, (stop[0][0] - fp) / fs) if stop else 3
+    if stop:
+        # bracket with the fast near-minimax fit, then shorten with the exact one
+        n, res = _search_length(lambda m: make(m, fast=True), est, step_limit=30, even=True)
+        if n is None:
+            n, res = _search_length(make, est, step_limit=30, even=True)
+        elif n <= MAX_LP_TAPS:
+            for m in range(n - 1, max(n - 4, 2), -1):
+                r2 = make(m)
+                if not r2[0]:
+                    break
+                n, res = m, r2
+    else:
+        n, res = _search_length(make, est, step_limit=30, even=True)
     if n is None or n > 1001:
         return None
     return FirDesign(res[3], res[1], res[2])

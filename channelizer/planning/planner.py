@@ -1,12 +1,13 @@
 """Search for the cheapest multistage decimation chain that meets a spec.
 
 Stages, in order: an optional CIC (order N, delay M, decimation R), a CIC-droop
-compensating FIR (decimating by 1 or 2), zero or more half-bands by 2, a final
-channel FIR (decimating by the rest) and, when the output rate is not an integer
-divisor of the input rate, a rational resampler.  The search walks the
-factorizations of the integer decimation, designs the most promising candidates
-(ranked first by a length estimate), recomputes each candidate's composite
-response and keeps the cheapest one that meets the spec.
+compensating FIR (decimating by a small factor, or 1), zero or more half-bands by 2,
+a final channel FIR (decimating by the rest) and, when the output rate is not an
+integer divisor of the input rate, a rational resampler (L up to 256, or the
+nearest fraction within 1 ppm).  The search walks the layouts of
+:mod:`.layouts`, designs the most promising (ranked by a length estimate), checks
+each candidate's composite response, raises only what falls short, and keeps the
+cheapest that meets the spec.
 
 References
 ----------
@@ -22,32 +23,48 @@ import math
 
 import numpy as np
 
+from .coeff_search import improve_integers
 from .cost import chain_cost
-from .design import (
-    choose_cic_order,
-    design_compensator,
-    design_decimator,
-    design_halfband,
-    herrmann_length,
-)
+from .design import choose_cic_order, design_compensator, design_decimator, design_halfband, design_kaiser
+from .layouts import carrier, describe, has_final, layouts, ripple_shares, stage_estimates
 from ..errors import ChannelizerError
 from ..units import format_hz
 from .hogenauer import cic_registers
 from .limits import check_time, planning_budget
 from .quantize import quantize_taps
 from .plan import Plan
-from .response import predict
-from .spec import ChainSpec
-from .stages import CicStage, FirStage, ResamplerStage
+from .response import fold, predict
+from .spec import ChainSpec, ripple_to_delta
+from .stages import CicStage, FirStage, ResamplerStage, chain_rates
 
-__all__ = ["plan_chain", "PlanResult", "Candidate", "MIN_OVERSAMPLING", "default_decimation"]
+__all__ = ["plan_chain", "plan_layout", "PlanResult", "Candidate", "MIN_OVERSAMPLING", "default_decimation"]
 
 #: Without an output rate, the planner picks the largest integer decimation whose
 #: output rate is at least this multiple of the channel bandwidth: the transition band
 #: from bw/2 to fs_out - bw/2 is then at least 25 % of the bandwidth wide.
 MIN_OVERSAMPLING = 1.25
-MAX_DESIGNED = 12
-MAX_INTERPOLATION = 64
+MAX_DESIGNED = 8
+MAX_INTERPOLATION = 256
+#: An output rate that is no fraction with a small enough L is met within this.
+RATE_TOLERANCE = 1e-6
+#: Largest L whose filter is designed by Parks-McClellan or linear programming;
+#: beyond, a Kaiser window.
+MAX_DESIGNED_L = 16
+#: A rational stage decimates by at most this many times its L.
+MAX_RATIONAL_DECIMATION = 8
+#: Rejection margin of hardware plans, for the bit-true chain's rounding (dB).
+HARDWARE_MARGIN_DB = 0.5
+MAX_CIC_ORDER = 10
+MAX_RETRIES = 4
+#: Default output rate: decimations down to ``d / RATE_SLACK`` are tried too, and
+#: reported when they cost at most ``CHEAPER_BY`` of the chosen chain.
+RATE_SLACK = 1.25
+CHEAPER_BY = 0.8
+#: Layouts estimated above this multiple of the best designed cost are not designed.
+PRUNE = 1.3
+#: Points per alias band while searching (the chosen chain is checked with the default).
+SEARCH_POINTS = 8
+SEARCH_REFINE = 401
 
 
 @dataclass
@@ -81,81 +98,6 @@ def default_decimation(input_rate, bandwidth):
     return max(1, int(math.floor(input_rate / (MIN_OVERSAMPLING * bandwidth) + 1e-9)))
 
 
-def _divisors(n):
-    small = [d for d in range(1, int(math.isqrt(n)) + 1) if n % d == 0]
-    return sorted(set(small + [n // d for d in small]))
-
-
-def _twos(n):
-    k = 0
-    while n % 2 == 0 and n > 1:
-        n //= 2
-        k += 1
-    return k
-
-
-def _layouts(d_int, fs, fp):
-    """(R, c, h, d_f): CIC decimation (1 = no CIC), compensator decimation (0 = none), half-bands, rest."""
-    out = []
-    for r in _divisors(d_int):
-        if r != 1 and r < 4:
-            continue
-        rest = d_int // r
-        fs_r = fs / r
-        if r > 1 and fp >= fs_r / 4:
-            continue
-        comps = (0,) if r == 1 else (0, 1, 2) if rest % 2 == 0 else (0, 1)
-        for c in comps:
-            rest_c = rest // (c if c else 1)
-            for h in range(0, _twos(rest_c) + 1):
-                d_f = rest_c // 2**h
-                out.append((r, c, h, d_f))
-    return out
-
-
-def _estimate(layout, fs, fp, dp, ds, *, protect=None, edge=None):
-    """Multiplies per input sample estimated from Herrmann's length formula."""
-    r, c, h, d_f = layout
-    fp0 = fp
-    fp = fp if protect is None else protect
-    rate = fs / r
-    total = 0.0
-    if c:
-        total += 9.0 / c * rate / fs
-        rate /= c
-    for _ in range(h):
-        if fp >= rate / 4:
-            return math.inf
-        n = herrmann_length(dp, ds, max(0.5 - 2 * fp / rate, 1e-6))
-        total += (n / 2 + 1) / 2 * (rate / fs)
-        rate /= 2
-    if edge is not None:
-        n = herrmann_length(dp, ds, (edge - fp0) / rate)
-        total += n / d_f * rate / fs
-    elif d_f > 1:
-        fo = rate / d_f
-        if fo - fp <= fp:
-            return math.inf
-        n = herrmann_length(dp, ds, (fo - 2 * fp) / rate)
-        total += n / d_f * rate / fs
-    return total
-
-
-def _describe(layout, resampler=None, edge=None):
-    r, c, h, d_f = layout
-    parts = []
-    if r > 1:
-        parts.append(f"CIC/{r}")
-    if c:
-        parts.append(f"comp/{c}")
-    parts += ["HB/2"] * h
-    if d_f > 1 or (edge is not None and not resampler):
-        parts.append(f"FIR/{d_f}")
-    if resampler:
-        parts.append(f"x{resampler[0]}/{resampler[1]}")
-    return " > ".join(parts) if parts else "none"
-
-
 def _quantize(stage, bits):
     """Stage with taps rounded to ``bits``-bit coefficients, DC gain kept where possible."""
     q = quantize_taps(np.asarray(stage.taps), bits)
@@ -164,53 +106,66 @@ def _quantize(stage, bits):
     gain = stage.interpolation if isinstance(stage, ResamplerStage) else 1
     want = gain * scale
     diff = want - int(ints.sum())
+    c = len(ints) // 2
     if isinstance(stage, FirStage) and stage.kind == "halfband":
-        c = len(ints) // 2
         if diff % 2 == 0 and diff:
             ints[c - 1] += diff // 2
             ints[c + 1] += diff // 2
     elif len(ints) % 2 == 1 and diff:
-        ints[len(ints) // 2] += diff
+        ints[c] += diff
+    elif diff % 2 == 0 and diff:
+        ints[c - 1] += diff // 2
+        ints[c] += diff // 2
     lim = 2 ** (bits - 1)
     ints = np.clip(ints, -lim, lim - 1)
+    if not (isinstance(stage, FirStage) and stage.kind == "halfband"):
+        ints = improve_integers(ints, np.asarray(stage.taps) * scale, bits=bits)
     taps = tuple(float(i) / scale for i in ints)
     return replace(stage, taps=taps, coefficient_bits=bits, coefficient_frac_bits=q.frac_bits)
 
 
-def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
+def _unit_dc(taps, gain=1.0):
+    taps = np.array(taps)
+    return tuple(taps * gain / taps.sum())
+
+
+def _build(layout, spec, resampler, shares, ds_mult, order_add=0):
     """Design every stage of one layout; returns (stages, reason).
 
-    Intermediate stages keep ``spec.protected_edge`` free of aliases; with a
-    stopband edge, the last stage also attenuates everything beyond it.
+    ``shares`` is each role's passband deviation, ``ds_mult`` tightens a role's
+    stopband, ``order_add`` raises the CIC order above the rule's.  Intermediate
+    stages keep ``spec.protected_edge`` free of aliases; with a stopband edge, the
+    last stage also attenuates everything beyond it.
     """
     r, c, h, d_f = layout
-    prot = spec.protected_edge
-    edge = spec.stopband_edge
+    fs, fp = spec.input_rate, spec.passband_edge
+    prot, edge = spec.protected_edge, spec.stopband_edge
+    ds = spec.stopband_delta
+    carry = carrier(layout, resampler=resampler, edge=edge)
     stages = []
     rate = fs
     cic = None
-    final_fir = d_f > 1 or (edge is not None and not resampler)
     if r > 1:
-        order = choose_cic_order(r, fs=fs, fp=prot, ds=ds)
-        if order is None:
-            return None, "no CIC order up to 8 rejects its alias bands enough"
+        order = choose_cic_order(r, fs=fs, fp=prot, ds=ds * ds_mult.get("cic", 1.0), compensated=carry is not None)
+        if order is None or order + order_add > MAX_CIC_ORDER:
+            return None, f"no CIC order up to {MAX_CIC_ORDER} rejects its alias bands enough"
+        order += order_add
         regs = cic_registers(order, r, 1, input_bits=spec.input_bits, output_bits=spec.output_bits)
         cic = CicStage(r, order, 1, regs.full_bits, tuple(regs.discarded))
         stages.append(cic)
         rate /= r
+        if carry is None:
+            droop = 1.0 - abs(cic.response(np.array([fp]), fs=fs)[0])
+            if droop > spec.passband_delta:
+                return None, f"uncompensated CIC droop {20 * math.log10(1 / (1 - droop)):.3f} dB exceeds the ripple"
     if c:
-        comp = design_compensator(cic, fp, c, fs_cic=fs, dp=dp_stage, ds=ds, protect=prot)
+        comp = design_compensator(cic, fp, c, fs_cic=fs, dp=shares["comp"], ds=ds * ds_mult.get("comp", 1.0), protect=prot)
         if comp is None:
             return None, "no compensator meets its share of the ripple"
-        taps = np.array(comp.taps)
-        stages.append(FirStage(c, tuple(taps / taps.sum()), "fir", "compensator"))
+        stages.append(FirStage(c, _unit_dc(comp.taps), "fir", "compensator"))
         rate /= c
-    elif cic is not None and (h or not final_fir):
-        droop = 1.0 - abs(cic.response(np.array([fp]), fs=fs)[0])
-        if droop > dp_stage:
-            return None, f"uncompensated CIC droop {20 * math.log10(1 / (1 - droop)):.3f} dB exceeds its ripple share"
     for _ in range(h):
-        hb = design_halfband(prot, fs=rate, delta=min(dp_stage, ds))
+        hb = design_halfband(prot, fs=rate, delta=min(shares["hb"], ds * ds_mult.get("hb", 1.0)))
         if hb is None:
             return None, f"no half-band serves a {format_hz(2 * prot)} band at {format_hz(rate, 'sps')}"
         g = np.array(hb.taps)
@@ -219,25 +174,38 @@ def _build(layout, spec, fs, fp, dp_stage, ds, resampler, d_int):
         g[others] *= 0.5 / g[others].sum()
         stages.append(FirStage(2, tuple(g), "halfband", "halfband"))
         rate /= 2
-    if final_fir:
+    if has_final(layout, resampler=resampler, edge=edge):
         last = edge if not resampler else None
-        if cic is not None and not c and not h:
-            # no separate compensator: the channel FIR undoes the CIC's droop itself
-            fir = design_compensator(cic, fp, d_f, fs_cic=fs, dp=dp_stage, ds=ds, fs=rate, protect=prot, stop_edge=last)
+        dp_f, ds_f = shares["final"], ds * ds_mult.get("final", 1.0)
+        if carry == "final":
+            fir = design_compensator(cic, fp, d_f, fs_cic=fs, dp=dp_f, ds=ds_f, fs=rate, protect=prot, stop_edge=last)
         else:
-            fir = design_decimator(fp, d_f, fs=rate, dp=dp_stage, ds=ds, protect=prot, stop_edge=last)
+            fir = design_decimator(fp, d_f, fs=rate, dp=dp_f, ds=ds_f, protect=prot, stop_edge=last)
         if fir is None:
             return None, f"no channel FIR decimating by {d_f} meets the spec"
-        taps = np.array(fir.taps)
-        stages.append(FirStage(d_f, tuple(taps / taps.sum()), "fir", "channel"))
+        stages.append(FirStage(d_f, _unit_dc(fir.taps), "fir", "channel"))
         rate /= d_f
     if resampler:
         up, down = resampler
-        res = design_decimator(fp, down, fs=rate * up, dp=dp_stage, ds=ds, gain=float(up), protect=prot, stop_edge=edge)
+        dp_r, ds_r = shares["res"], ds * ds_mult.get("res", 1.0)
+        if up > MAX_DESIGNED_L:
+            # long polyphase filter: a Kaiser window; the droop must then fit the ripple
+            if carry == "res":
+                droop = 1.0 - abs(cic.response(np.array([fp]), fs=fs)[0])
+                if droop > dp_r:
+                    return None, f"uncompensated CIC droop {20 * math.log10(1 / (1 - droop)):.3f} dB exceeds the ripple"
+                dp_r -= droop
+            fo = rate * up / down
+            stop = edge if edge is not None else fo - prot
+            res = design_kaiser(fp, stop, fs=rate * up, delta=min(dp_r, ds_r), gain=float(up))
+        elif carry == "res":
+            res = design_compensator(cic, fp, down, fs_cic=fs, dp=dp_r, ds=ds_r, fs=rate * up, protect=prot,
+                                     stop_edge=edge, gain=float(up), fold_rate=rate)
+        else:
+            res = design_decimator(fp, down, fs=rate * up, dp=dp_r, ds=ds_r, gain=float(up), protect=prot, stop_edge=edge)
         if res is None:
             return None, f"no resampler filter for x{up}/{down} meets the spec"
-        taps = np.array(res.taps)
-        stages.append(ResamplerStage(up, down, tuple(taps * up / taps.sum())))
+        stages.append(ResamplerStage(up, down, _unit_dc(res.taps, up)))
     if not stages or all(isinstance(s, CicStage) for s in stages):
         return None, "a chain needs at least one FIR stage"
     if spec.objective == "hardware":
@@ -270,19 +238,199 @@ def _targets(spec):
         return [(int(ratio), None, spec.output_rate)]
     options = []
     for d_int in range(int(math.floor(ratio)), 0, -1):
-        lm = Fraction(d_int) / ratio  # = L / M, below 1
-        up, down = lm.numerator, lm.denominator
-        if up > MAX_INTERPOLATION:
+        lm = _nearest_fraction(Fraction(d_int) / ratio)  # = L / M, below 1
+        if lm is None:
             continue
+        up, down = lm.numerator, lm.denominator
+        if down > MAX_RATIONAL_DECIMATION * up:
+            continue  # the integer stages should do the bulk of the decimation
         options.append((up, -d_int, d_int, (up, down)))
     if not options:
+        best = Fraction(int(math.floor(ratio))) / ratio
+        near = best.limit_denominator(MAX_INTERPOLATION * 2)
+        got = fs / int(math.floor(ratio)) * float(near)
         raise ChannelizerError(
-            f"output rate {format_hz(spec.output_rate, 'sps', digits=12)} is no simple fraction of the input rate "
-            f"{format_hz(fs, 'sps', digits=12)}: reaching it exactly needs interpolation by more than {MAX_INTERPOLATION}; "
-            "choose an output rate that is a simpler fraction of the input rate"
+            f"output rate {format_hz(spec.output_rate, 'sps', digits=12)} is no ratio x L/M with L <= {MAX_INTERPOLATION} within "
+            f"{RATE_TOLERANCE * 1e6:g} ppm; the nearest is {format_hz(got, 'sps', digits=12)} "
+            f"({(got / spec.output_rate - 1) * 1e6:+.2f} ppm): ask for that rate"
         )
     options.sort()
-    return [(d_int, lm, spec.output_rate) for _, _, d_int, lm in options[:4]]
+    return [(d_int, lm, fs / d_int * lm[0] / lm[1]) for _, _, d_int, lm in options[:4]]
+
+
+def _nearest_fraction(x):
+    """``x`` itself when its numerator is at most MAX_INTERPOLATION, else the simplest
+    fraction within RATE_TOLERANCE of it (a convergent of its continued fraction,
+    the best approximations there are: Khinchin, *Continued Fractions*, 1964, from
+    memory); None when there is none with a small enough numerator."""
+    if x.numerator <= MAX_INTERPOLATION:
+        return x
+    a, b = x.numerator, x.denominator
+    h0, h1, k0, k1 = 0, 1, 1, 0
+    while b:
+        q = a // b
+        a, b = b, a - q * b
+        h0, h1 = h1, q * h1 + h0
+        k0, k1 = k1, q * k1 + k0
+        if h1 > MAX_INTERPOLATION:
+            return None
+        c = Fraction(h1, k1)
+        if c and abs(c / x - 1) <= RATE_TOLERANCE:
+            return c
+    return None
+
+
+def _role(stage):
+    if isinstance(stage, ResamplerStage):
+        return "res"
+    if isinstance(stage, CicStage):
+        return "cic"
+    return {"compensator": "comp", "halfband": "hb"}.get(stage.role, "final")
+
+
+def _culprits(stages, x, spec):
+    """Which stages let the worst alias at input frequency ``x`` through: {'cic'} or FIR roles."""
+    fs, ds = spec.input_rate, spec.stopband_delta
+    rates = chain_rates(stages, fs=fs)
+    out = set()
+    if isinstance(stages[0], CicStage):
+        g = fold(np.array([x]), rates[-1])
+        ratio = abs(stages[0].response(np.array([x]), fs=fs)[0]) / max(abs(stages[0].response(g, fs=fs)[0]), 1e-300)
+        if ratio > 0.9 * ds:
+            return {"cic"}
+    for st, rate in zip(stages, rates):
+        if isinstance(st, CicStage):
+            continue
+        if abs(st.response(np.array([x]), fs=rate)[0]) / st.interpolation < 0.3:
+            out.add(_role(st))
+    return out or {_role(st) for st in stages if not isinstance(st, CicStage)}
+
+
+def _design_candidate(cand, layout, resampler, est, spec):
+    """Design one layout, raising only what fails; fills ``cand`` in."""
+    fs = spec.input_rate
+    dp, ds = spec.passband_delta, spec.stopband_delta
+    shares = ripple_shares(est, dp, ds)
+    ds_mult, order_add = {}, 0
+    stages, reason, pred = None, "", None
+    for _ in range(MAX_RETRIES):
+        stages, reason = _build(layout, spec, resampler, shares, ds_mult, order_add)
+        if stages is None:
+            break
+        pred = predict(stages, fs=fs, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge,
+                       points_per_band=SEARCH_POINTS, refine_points=SEARCH_REFINE)
+        reason = _shortfall(pred, spec)
+        if not reason:
+            break
+        if pred.passband_ripple_db > spec.ripple_db * (1 + 1e-9):
+            over = ripple_to_delta(pred.passband_ripple_db) / dp
+            shares = {k: v / max(over, 1.0) * (0.9 if k != "hb" else 1.0) for k, v in shares.items()}
+        need = spec.rejection_db + (HARDWARE_MARGIN_DB if spec.objective == "hardware" else 0.0)
+        if pred.alias_rejection_db < need:
+            short = need - pred.alias_rejection_db
+            for role in _culprits(stages, pred.worst_alias_hz, spec):
+                if role == "cic":
+                    order_add += 1
+                else:
+                    ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + 1.0) / 20)
+        if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < need:
+            short = need - pred.adjacent_rejection_db
+            role = _role(stages[-1])
+            ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + 1.0) / 20)
+    cand.stages = stages or ()
+    if stages:
+        cand.prediction = pred
+        cand.cost = chain_cost(
+            stages, fs=fs, objective=spec.objective, clock=spec.clock,
+            input_bits=spec.input_bits, coefficient_bits=spec.coefficient_bits,
+        )
+    cand.reason = reason
+    cand.meets = bool(stages) and not reason
+    return cand
+
+
+def _search(spec, targets, max_designed=MAX_DESIGNED):
+    """Design the most promising layouts for ``targets``; returns every Candidate tried."""
+    fs, fp = spec.input_rate, spec.passband_edge
+    dp, ds = spec.passband_delta, spec.stopband_delta
+    ranked = []
+    for d_int, resampler, _ in targets:
+        for layout in layouts(d_int, fs, spec.protected_edge):
+            est = stage_estimates(layout, fs=fs, fp=fp, prot=spec.protected_edge, dp=dp, ds=ds,
+                                  edge=spec.stopband_edge, resampler=resampler)
+            if est is None or not est:
+                if est is not None and layout[0] > 1:
+                    est = {}
+                else:
+                    continue
+            ranked.append((sum(est.values()), layout, resampler, est))
+    if not ranked:
+        raise ChannelizerError(
+            f"no chain can take {fs:g} Hz to a {spec.bandwidth:g} Hz channel; widen the output rate"
+        )
+    ranked.sort(key=lambda t: t[0])
+    tried = []
+    best_cost = math.inf
+    designed = 0
+    for total, layout, resampler, est in ranked[: 3 * max_designed]:
+        check_time()
+        if designed >= max_designed:
+            break
+        if total > PRUNE * best_cost and len(tried) >= 4:
+            continue
+        cand = Candidate(describe(layout, resampler, spec.stopband_edge), total)
+        tried.append(_design_candidate(cand, layout, resampler, est, spec))
+        designed += bool(cand.stages)
+        if cand.meets:
+            best_cost = min(best_cost, cand.cost.total.multiplies_per_input_sample)
+    return tried
+
+
+def _cheaper_rates(spec, best, d):
+    """Chains at a slightly higher output rate that cost markedly less than ``best``."""
+    fs = spec.input_rate
+    lo = max(2, int(math.ceil(d / RATE_SLACK)))
+    options = [k for k in range(d - 1, lo - 1, -1)]
+    # the smoothest decimations first: they factor into a CIC and half-bands
+    options.sort(key=lambda k: (max(p for p in _prime_factors(k)), -k))
+    out = []
+    for k in options[:2]:  # the two smoothest: a planner answer stays fast
+        alt = replace(spec, output_rate=fs / k)
+        good = [c for c in _search(alt, [(k, None, fs / k)], max_designed=4) if c.meets]
+        if not good:
+            continue
+        c = min(good, key=lambda c: c.cost.key())
+        this = c.cost.total.multiplies_per_input_sample
+        was = best.cost.total.multiplies_per_input_sample
+        if this <= CHEAPER_BY * was:
+            c.layout = f"{c.layout} @ {fs / k:.6g} Hz"
+            c.reason = (f"output {fs / k:.10g} Hz (/{k}) instead of {fs / d:.10g} Hz (/{d}): "
+                        f"{this:.3g} multiplies per input sample, {100 * (1 - this / was):.0f} % less")
+            c.meets = False
+            out.append(c)
+    return out
+
+
+def _width_that_meets(spec, targets):
+    """Smallest coefficient width (up to 6 bits more, at most 32) with which the spec is met."""
+    for bits in range(spec.coefficient_bits + 1, min(spec.coefficient_bits + 6, 32) + 1):
+        wider = replace(spec, coefficient_bits=bits)
+        if any(c.meets for c in _search(wider, targets, max_designed=3)):
+            return bits
+    return None
+
+
+def _prime_factors(n):
+    """Prime factors of ``n`` (1 for n = 1)."""
+    out, p = [], 2
+    while p * p <= n:
+        while n % p == 0:
+            out.append(p)
+            n //= p
+        p += 1
+    if n > 1 or not out:
+        out.append(n)
+    return out
 
 
 @planning_budget
@@ -304,65 +452,40 @@ def plan_chain(spec):
     """
     if not isinstance(spec, ChainSpec):
         raise TypeError("spec must be a ChainSpec")
-    fs, fp = spec.input_rate, spec.passband_edge
-    ds = spec.stopband_delta
-    candidates = []
-    for d_int, resampler, fs_out in _targets(spec):
-        for layout in _layouts(d_int, fs, spec.protected_edge):
-            r, c, h, d_f = layout
-            n_ripple = (1 if c or r > 1 else 0) + h + (d_f > 1 or spec.stopband_edge is not None) + (resampler is not None)
-            dp_stage = spec.passband_delta / max(n_ripple, 1)
-            est = _estimate(layout, fs, fp, dp_stage, ds, protect=spec.protected_edge, edge=spec.stopband_edge)
-            if resampler:
-                up, down = resampler
-                rate = fs / d_int * up
-                est += herrmann_length(dp_stage, ds, (rate / down - 2 * fp) / rate) / down * (fs / d_int) / fs
-            if math.isfinite(est):
-                candidates.append((est, layout, resampler, dp_stage, d_int))
-    if not candidates:
-        raise ChannelizerError(
-            f"no chain can take {format_hz(fs, 'sps')} to a {format_hz(spec.bandwidth)} channel; widen the output rate"
-        )
-    candidates.sort(key=lambda t: t[0])
-    tried = []
-    best_cost = math.inf
-    for est, layout, resampler, dp_stage, d_int in candidates[:MAX_DESIGNED]:
-        check_time()
-        if est > 3.0 * best_cost and len(tried) >= 4:
-            continue
-        cand = Candidate(_describe(layout, resampler, spec.stopband_edge), est)
-        stages, reason = None, ""
-        for tighten in (1.0, 0.5, 0.25):
-            stages, reason = _build(layout, spec, fs, fp, dp_stage * tighten, ds * tighten, resampler, d_int)
-            if stages is None:
-                break
-            pred = predict(stages, fs=fs, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge)
-            reason = _shortfall(pred, spec)
-            if not reason:
-                break
-        cand.stages = stages or ()
-        if stages:
-            cand.prediction = pred
-            cand.cost = chain_cost(
-                stages, fs=fs, objective=spec.objective, clock=spec.clock,
-                input_bits=spec.input_bits, coefficient_bits=spec.coefficient_bits,
-            )
-        cand.reason = reason
-        cand.meets = bool(stages) and not reason
-        tried.append(cand)
-        if cand.meets:
-            best_cost = min(best_cost, cand.cost.total.multiplies_per_input_sample)
+    targets = _targets(spec)
+    long_filters = any(r is not None and r[0] > MAX_DESIGNED_L for _, r, _ in targets)
+    tried = _search(spec, targets, max_designed=3 if long_filters else MAX_DESIGNED)
     good = sorted((c for c in tried if c.meets), key=lambda c: c.cost.key())
     if not good:
         if spec.objective == "hardware":
             _refuse_for_coefficient_width(spec)
         worst = "; ".join(f"{c.layout}: {c.reason}" for c in tried[:3])
+        width = _width_that_meets(spec, targets) if spec.objective == "hardware" else None
+        if width is not None:
+            raise ChannelizerError(
+                f"no chain met rejection {spec.rejection_db:g} dB with {spec.coefficient_bits}-bit coefficients "
+                f"({worst}); {width}-bit coefficients meet it"
+            )
         raise ChannelizerError(
             f"no chain met ripple {spec.ripple_db:g} dB and rejection {spec.rejection_db:g} dB ({worst}); "
             "relax the targets or widen the output rate"
         )
+    # the search sampled each alias band coarsely: the chosen chain is checked in full
+    while True:
+        best = good[0]
+        best.prediction = predict(best.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
+                                  stopband_edge=spec.stopband_edge)
+        best.reason = _shortfall(best.prediction, spec)
+        if not best.reason or len(good) == 1:
+            break
+        best.meets = False
+        good.pop(0)
+    if best.reason:
+        raise ChannelizerError(
+            f"no chain met ripple {spec.ripple_db:g} dB and rejection {spec.rejection_db:g} dB "
+            f"({best.layout}: {best.reason}); relax the targets or widen the output rate"
+        )
     failed = [c for c in tried if not c.meets]
-    best = good[0]
     for c in good[1:]:
         extra = c.cost.total.multiplies_per_input_sample - best.cost.total.multiplies_per_input_sample
         if spec.objective == "hardware":
@@ -370,7 +493,10 @@ def plan_chain(spec):
             c.reason = f"needs {more} more multiplier{'s' if more != 1 else ''}"
         else:
             c.reason = f"costs {extra:.3g} more multiplies per input sample"
-    alternatives = good[1:] + failed
+    cheaper = []
+    if spec.output_rate is None and spec.objective == "cpu":
+        cheaper = _cheaper_rates(spec, best, targets[0][0])
+    alternatives = cheaper + good[1:] + failed
     plan = _to_plan(best, spec)
     return PlanResult(plan, best, alternatives)
 
@@ -406,12 +532,14 @@ def _refuse_for_coefficient_width(spec):
 
 def _shortfall(pred, spec):
     msgs = []
+    # a bit-true chain adds its rounding noise: hardware plans keep a small margin
+    need = spec.rejection_db + (HARDWARE_MARGIN_DB if spec.objective == "hardware" else 0.0)
     if pred.passband_ripple_db > spec.ripple_db * (1 + 1e-9):
         msgs.append(f"ripple {pred.passband_ripple_db:.4f} dB over {spec.ripple_db:g}")
-    if pred.alias_rejection_db < spec.rejection_db:
-        msgs.append(f"rejection {pred.alias_rejection_db:.1f} dB under {spec.rejection_db:g}")
-    if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < spec.rejection_db:
-        msgs.append(f"stopband rejection {pred.adjacent_rejection_db:.1f} dB under {spec.rejection_db:g}")
+    if pred.alias_rejection_db < need:
+        msgs.append(f"rejection {pred.alias_rejection_db:.1f} dB under {need:g}")
+    if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < need:
+        msgs.append(f"stopband rejection {pred.adjacent_rejection_db:.1f} dB under {need:g}")
     return ", ".join(msgs)
 
 
@@ -439,6 +567,8 @@ def _to_plan(cand, spec):
     }
     if spec.clock is not None:
         spec_d["clock"] = float(spec.clock)
+    if spec.output_rate is not None and rates[-1] != spec.output_rate:
+        predicted["output_rate_error_ppm"] = round((rates[-1] / spec.output_rate - 1) * 1e6, 6)
     if spec.stopband_edge is not None:
         spec_d["stopband_edge"] = float(spec.stopband_edge)
         predicted["stopband_rejection_db"] = round(cand.prediction.adjacent_rejection_db, 3)
@@ -450,3 +580,35 @@ def _to_plan(cand, spec):
         stages=cand.stages,
         predicted=predicted,
     )
+
+
+def plan_layout(spec, layout, resampler=None):
+    """Design one given layout ``(R, c, h, d)`` (see :mod:`.layouts`) for ``spec``.
+
+    For comparisons and tests that want a particular chain rather than the
+    cheapest; the stages are designed and checked exactly as the search does.
+
+    Returns
+    -------
+    PlanResult
+        With no alternatives.
+
+    Raises
+    ------
+    ChannelizerError
+        When the layout cannot meet the spec.
+    """
+    est = stage_estimates(layout, fs=spec.input_rate, fp=spec.passband_edge, prot=spec.protected_edge,
+                          dp=spec.passband_delta, ds=spec.stopband_delta, edge=spec.stopband_edge,
+                          resampler=resampler)
+    if est is None:
+        raise ChannelizerError(f"layout {describe(layout, resampler, spec.stopband_edge)} cannot serve this spec")
+    cand = _design_candidate(Candidate(describe(layout, resampler, spec.stopband_edge), sum(est.values())),
+                             layout, resampler, est, spec)
+    if cand.meets:
+        cand.prediction = predict(cand.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
+                                  stopband_edge=spec.stopband_edge)
+        cand.reason = _shortfall(cand.prediction, spec)
+    if cand.reason:
+        raise ChannelizerError(f"layout {cand.layout} does not meet the spec: {cand.reason}")
+    return PlanResult(_to_plan(cand, spec), cand, [])

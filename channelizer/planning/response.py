@@ -196,33 +196,39 @@ def _grid(lo, hi, n):
 
 def _worst(stages, intervals, fs, dc, points_per_band, refine=4, refine_points=2001):
     """Smallest attenuation over ``intervals``: a coarse pass over every band, then a
-    dense pass over the ``refine`` worst bands of each image path."""
-    worst_db, worst_f = np.inf, float("nan")
+    dense pass over the ``refine`` worst bands of each image path (with many image
+    paths, over the ``refine`` x 4 worst bands of all paths together)."""
     by_image = {}
     for lo, hi, k in intervals:
         by_image.setdefault(k, []).append((lo, hi))
+    coarse = []  # (band minimum, image, band)
+    worst_db, worst_f = np.inf, float("nan")
     for k, bands in by_image.items():
-        f = np.concatenate([_grid(lo, hi, points_per_band) for lo, hi in bands])
+        edges = np.array(bands, dtype=float)
+        steps = np.linspace(0.0, 1.0, points_per_band)
+        f = (edges[:, :1] + (edges[:, 1:] - edges[:, :1]) * steps).ravel()
         att = -20.0 * np.log10(np.maximum(np.abs(normalised_response(stages, f, fs=fs, image=k)), 1e-300) / dc)
         per_band = att.reshape(len(bands), points_per_band).min(axis=1)
-        for b in np.argsort(per_band)[:refine]:
-            lo, hi = bands[b]
-            fine = _grid(lo, hi, refine_points)
-            a = -20.0 * np.log10(np.maximum(np.abs(normalised_response(stages, fine, fs=fs, image=k)), 1e-300) / dc)
-            i = int(np.argmin(a))
-            if a[i] < att.min():
-                att = np.append(att, a[i])
-                f = np.append(f, fine[i])
         i = int(np.argmin(att))
         if att[i] < worst_db:
             worst_db, worst_f = float(att[i]), float(f[i])
+        coarse += [(float(per_band[b]), k, bands[b]) for b in np.argsort(per_band)[:refine]]
+    if len(by_image) > refine:
+        coarse = sorted(coarse, key=lambda t: t[0])[: 4 * refine]
+    for _, k, (lo, hi) in coarse:
+        fine = _grid(lo, hi, refine_points)
+        a = -20.0 * np.log10(np.maximum(np.abs(normalised_response(stages, fine, fs=fs, image=k)), 1e-300) / dc)
+        i = int(np.argmin(a))
+        if a[i] < worst_db:
+            worst_db, worst_f = float(a[i]), float(fine[i])
     return worst_db, worst_f
 
 
-def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24):
+def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24, refine_points=2001):
     """Predicted passband ripple and alias rejection of a chain.
 
-    The alias bands are sampled at ``points_per_band`` points each, edges included.
+    The alias bands are sampled at ``points_per_band`` points each, edges included,
+    the worst few again at ``refine_points``.
     With ``stopband_edge`` the rejection of everything landing beyond it is
     computed too.
     """
@@ -233,12 +239,12 @@ def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24):
     mag_pb = np.abs(normalised_response(stages, pb, fs=fs))
     ripple = 20.0 * np.log10(mag_pb.max() / mag_pb.min())
     intervals = alias_intervals(stages, fs=fs, bandwidth=bandwidth)
-    worst_db, worst_f = _worst(stages, intervals, fs, dc, points_per_band)
+    worst_db, worst_f = _worst(stages, intervals, fs, dc, points_per_band, refine_points=refine_points)
     adjacent = None
     if stopband_edge is not None:
         fs_out = chain_rates(stages, fs=fs)[-1]
         land = landing_intervals(stages, fs=fs, lo=stopband_edge, hi=fs_out / 2.0)
-        adjacent, _ = _worst(stages, land, fs, dc, points_per_band)
+        adjacent, _ = _worst(stages, land, fs, dc, points_per_band, refine_points=refine_points)
     return Prediction(
         passband_ripple_db=float(ripple),
         alias_rejection_db=float(worst_db),

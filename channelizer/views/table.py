@@ -96,6 +96,9 @@ def format_plan(plan):
             line += f" {r['multipliers']:>5}"
         lines.append(line + "  " + r["detail"])
     t = cost.total
+    if "output_rate_error_ppm" in pred:
+        lines += ["", f"Output rate {format_hz(plan.output_rate, 'sps', digits=10)}, {pred['output_rate_error_ppm']:+.3f} ppm from the "
+                      "rate asked for (the nearest simple L/M)"]
     lines += [
         "",
         f"Predicted passband ripple  {pred['passband_ripple_db']:.4f} dB   (target {spec['ripple_db']:g} dB)",
