@@ -14,7 +14,7 @@ from channelizer.planning.hogenauer import cic_registers
 from channelizer.engines.integer_chain import IntegerChain
 from channelizer.engines.bit_widths import BitWidthTable
 from channelizer.planning.plan import PLAN_FORMAT, Plan
-from channelizer.planning.planner import plan_chain, plan_layout
+from channelizer.planning.planner import plan_layout
 from channelizer.planning.spec import ChainSpec
 from channelizer.planning.stages import CicStage
 
