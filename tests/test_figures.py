@@ -3,6 +3,7 @@
 Each check names where its expected value comes from; none is copied from our own output.
 """
 
+import math
 import os
 import re
 
@@ -45,10 +46,19 @@ def test_stopband_edge_messages_name_the_real_limit():
 
 
 def test_output_rate_message_shows_the_rate_as_given():
-    # 1.0000001 MHz printed to 6 significant digits reads 1 MHz, a clean /10
-    # (common practice: %g keeps 6 digits); the message must keep every digit given.
-    msg = _refusal(input_rate=10e6, bandwidth=100e3, output_rate=1.0000001e6)
-    assert "1.0000001 Msps" in msg and "1e+06" not in msg
+    # 1.0000001 MHz printed to 6 significant digits reads 1 MHz, a clean /10 (common
+    # practice: %g keeps 6 digits).  The chain reaches 1 MHz exactly (10 MHz / 10), so
+    # what is printed must state the error against the rate asked for:
+    # (1e6 / 1.0000001e6 - 1) * 1e6 = -0.1 ppm (arithmetic).
+    from channelizer.planning.planner import plan_chain
+    from channelizer.planning.spec import ChainSpec
+    from channelizer.views.table import format_plan
+
+    plan = plan_chain(ChainSpec(input_rate=10e6, bandwidth=100e3, output_rate=1.0000001e6)).plan
+    text = format_plan(plan)
+    want = (plan.output_rate / 1.0000001e6 - 1) * 1e6
+    assert want == pytest.approx(-0.1, abs=1e-6)
+    assert f"{want:.3f} ppm from the rate asked for" in text and "1e+06" not in text
 
 
 def test_hardware_refusal_names_the_coefficient_width():
@@ -223,20 +233,25 @@ def test_mean_power_is_the_settled_power(tmp_path):
 def test_bit_true_dc_offset_is_a_spur_not_an_alias(tmp_path):
     # 8 Msps -> 8 ksps, 3 kHz, 90 dB: alias tones such as 415995 Hz land 5 Hz from DC
     # (415995 - 52 x 8000 = -5, arithmetic), on top of the integer path's constant offset.
-    # Hogenauer's pruning floors the first integrator's input by d1 = 3 bits: a mean of
-    # -(2^3 - 1)/2 = -3.5 input LSBs, 20 log10(3.5 / 32768) = -79.4 dBFS at most once the
-    # roundings after it are added (Hogenauer 1981, truncation error mean).
+    # Hogenauer's pruning floors the first integrator's input by d1 bits (the plan's
+    # pruned_bits[0]): a mean of -(2^d1 - 1)/2 input LSBs, 20 log10((2^d1 - 1) / 2 / 32768)
+    # dBFS at most once the roundings after it are added (Hogenauer 1981, truncation
+    # error mean); d1 = 3 gives -79.4 dBFS, d1 = 4 gives -72.8 dBFS.
     from channelizer.checks.verify import verify_plan
     from channelizer.planning.plan import Plan
+    from channelizer.planning.stages import CicStage
 
     path = _plan_file(tmp_path, "p.yaml", input_rate=8e6, bandwidth=3e3, output_rate=8e3, rejection_db=90.0)
-    v = verify_plan(Plan.from_yaml(open(path).read()), bit_true=True)
+    plan = Plan.from_yaml(open(path).read())
+    d1 = next(st for st in plan.stages if isinstance(st, CicStage)).pruned_bits[0]
+    bound = 20 * math.log10(max(2**d1 - 1, 1) / 2 / 32768)
+    v = verify_plan(plan, bit_true=True)
     near = [t for t in v.aliases if abs(t.landing_hz) < 10.0]
     assert near, "the sweep must hold a tone landing next to DC"
     for t in near:  # predicted: the quantised taps' response (scipy.signal.freqz per stage)
         assert t.measured_db <= max(t.predicted_db, t.floor_db) + 3.0 < -90.0
     assert v.verdict == "meets" and v.measured_rejection_db >= 90.0
-    assert v.dc_spur_dbfs is not None and -120.0 < v.dc_spur_dbfs < -79.4 + 1.0
+    assert v.dc_spur_dbfs is not None and -120.0 < v.dc_spur_dbfs < bound + 1.0
     assert any(line.startswith("DC spur:") for line in v.summary_lines())
 
 
