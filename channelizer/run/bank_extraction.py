@@ -75,6 +75,8 @@ def run_bank_extraction(
     nonfinite="error",
     block_size=None,
     audit=True,
+    trim_settling=False,
+    audit_resolution=None,
 ):
     """Extract the raster channels of a :class:`BankPlan` (all, or ``entries``) in one pass.
 
@@ -100,7 +102,9 @@ def run_bank_extraction(
         fine_stages=plan.stages,
         fs=plan.input_rate,
     )
-    kw = {"engine": engine}
+    kw = {"engine": engine, "trim_settling": trim_settling}
     if block_size is not None:
         kw["block_size"] = block_size
+    if audit_resolution is not None:
+        kw["audit_resolution"] = audit_resolution
     return run_requests(capture, requests, out_dir, (output_format, False, nonfinite, progress, plots, audit), kw)
