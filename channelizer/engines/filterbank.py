@@ -120,6 +120,7 @@ class PolyphaseBank:
         self.method = method if method != "auto" else "fft" if self.K * O >= FFT_FROM_TAPS else "direct"
         if self.method == "fft":
             self._N, self._Cf = _correlation_spectra(hr, O, self.decimation)
+            self._S = (self._N - self.K * O + 1) // O * O  # new rows per frame
         else:
             self._h2 = np.repeat(hr, 2, axis=1)
             self._rows = max(16, 32768 // M)  # rows per pass: the pass stays in cache
@@ -157,30 +158,46 @@ class PolyphaseBank:
             out[..., d0 : d0 + count] = y[..., first : first + (count - 1) * step + 1 : step]
         return out
 
-    def _kept_by_fft(self, buf, n_new):
-        """The kept bins' outputs before the shift phase, by overlap-save correlation.
+    def _by_fft(self, buf, n_new, first_c):
+        """The kept bins' outputs ``(len(keep), n_new)``, shift phase included, by
+        overlap-save correlation.
 
         With ``t = aD + b`` and ``X[i, b] = buf[iD + b]``,
         ``u[n, t] = sum_l c_t[l] X[n + l, b]``, ``c_t[mO + a] = hr[m, t]`` (``l < KO``):
-        frames of ``N`` rows of ``X`` (``N - KO + 1`` apart) are transformed along
-        time, multiplied by ``conj(FFT_N(c_t))`` for every ``t``, given the ``M``-point
-        FFT over ``t`` (it commutes with the transform along time) and, for the kept
-        bins only, transformed back; the first ``N - KO + 1`` rows of each frame are
-        exact (no circular wrap).  Returns ``(frames, N - KO + 1, len(keep))``.
+        frames of ``N`` rows of ``X`` (``S <= N - KO + 1`` apart, ``S`` a multiple of
+        ``O``) are transformed along time, multiplied by ``conj(FFT_N(c_t))`` for every
+        ``t``, given the ``M``-point FFT over ``t`` (it commutes with the transform
+        along time) and, for the kept bins only, transformed back; the first ``S``
+        rows of each frame are exact (no circular wrap).  Frames run in
+        ``FFT_WORKERS`` threads (numpy and the FFT release the GIL).
         """
-        D, O, N = self.decimation, self.oversampling, self._N
-        L = self.K * O
-        step = N - L + 1
-        nb = -(-n_new // step)
-        rows = min(buf.size // D, nb * step + L - 1)
-        X = np.zeros((nb * step + L - 1, D), np.complex64)
+        D, O, N, M = self.decimation, self.oversampling, self._N, self.bins
+        S = self._S
+        nb = -(-n_new // S)
+        rows = min(buf.size // D, (nb - 1) * S + N)
+        X = np.zeros(((nb - 1) * S + N, D), np.complex64)  # every frame lies inside X
         X[:rows] = buf[: rows * D].reshape(rows, D)
         s0, s1 = X.strides
-        frames = np.lib.stride_tricks.as_strided(X, shape=(nb, N, D), strides=(step * s0, s0, s1), writeable=False)
-        F = scipy.fft.fft(frames, axis=1, workers=FFT_WORKERS)  # (nb, N, D)
-        U = (F[:, :, None, :] * self._Cf).reshape(nb, N, O * D)
-        Y = self._take_kept(scipy.fft.fft(U, axis=2, overwrite_x=True, workers=FFT_WORKERS))
-        return scipy.fft.ifft(Y, axis=1, overwrite_x=True, workers=FFT_WORKERS)[:, :step]
+        frames = np.lib.stride_tricks.as_strided(X, shape=(nb, N, D), strides=(S * s0, s0, s1), writeable=False)
+        nk = M if self.keep is None else self.keep.size
+        out = np.empty((nk, nb, S), np.complex64)
+        phase = self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
+
+        def run(f0, f1):
+            F = scipy.fft.fft(frames[f0:f1], axis=1)  # (frames, N, D)
+            U = (F[:, :, None, :] * self._Cf).reshape(f1 - f0, N, M)
+            Y = self._take_kept(scipy.fft.fft(U, axis=2, overwrite_x=True))
+            y = scipy.fft.ifft(Y, axis=1, overwrite_x=True)[:, :S]
+            np.multiply(y.transpose(2, 0, 1), phase, out=out[:, f0:f1])
+
+        per = max(1, (1 << 17) // (N * M))  # frames per piece: a piece stays in cache
+        pieces = [(f, min(nb, f + per)) for f in range(0, nb, per)]
+        if FFT_WORKERS > 1 and len(pieces) > 1:
+            list(_pool().map(lambda r: run(*r), pieces))
+        else:
+            for r in pieces:
+                run(*r)
+        return out.reshape(nk, nb * S)[:, :n_new]
 
     def process(self, block):
         """Feed the next block; returns ``(n_new, len(keep))`` complex64 bin outputs."""
@@ -200,23 +217,18 @@ class PolyphaseBank:
             return np.zeros((M if self.keep is None else self.keep.size, 0), np.complex64)
         # the circular shift roll(u, s + 1), s = nD mod M, is applied after the FFT as
         # the phase exp(-2j pi k (s + 1) / M) on the kept bins only (shift theorem)
-        nk = M if self.keep is None else self.keep.size
+        first_c = self.n_out % O
         if self.method == "fft":
-            y = self._kept_by_fft(buf, n_new)  # (frames, step, nk)
-            nb, step = y.shape[:2]
-            out = np.empty((nk, nb * step), np.complex64)
-            out.reshape(nk, nb, step)[:] = y.transpose(2, 0, 1)
-            out = out[:, :n_new]
+            out = self._by_fft(buf, n_new, first_c)
         else:
             u = self._branches(buf, n_new)  # a fresh array: the FFT may overwrite it
             y = scipy.fft.fft(u, axis=1, overwrite_x=True, workers=FFT_WORKERS)
-            out = np.empty((nk, n_new), np.complex64)
+            out = np.empty((M if self.keep is None else self.keep.size, n_new), np.complex64)
             out[:] = self._take_kept(y).T
+            for c in range(O):  # outputs n with n % O == c: rows i = (c - n_out) mod O, step O
+                out[:, (c - first_c) % O :: O] *= self._phase[c][:, None]
         self._hist = buf[n_new * D :].copy()
-        first_c = self.n_out % O
         self.n_out = m_end
-        for c in range(O):  # outputs n with n % O == c: rows i = (c - n_out) mod O, step O
-            out[:, (c - first_c) % O :: O] *= self._phase[c][:, None]
         return out
 
 
@@ -231,6 +243,18 @@ def _runs(keep):
         runs.append((i, int(keep[i]), j - i, step))
         i = j
     return runs
+
+
+_POOL = []
+
+
+def _pool():
+    """The shared worker threads of the FFT path (made on first use)."""
+    if not _POOL:
+        from concurrent.futures import ThreadPoolExecutor
+
+        _POOL.append(ThreadPoolExecutor(FFT_WORKERS, thread_name_prefix="bank"))
+    return _POOL[0]
 
 
 def _correlation_spectra(hr, O, D):
