@@ -60,6 +60,8 @@ FFT_WORKERS = 2
 #: Branch filters by FFT correlation from this many taps per input sample (``K O``) on;
 #: below it the element-wise passes are quicker.
 FFT_FROM_TAPS = 12
+#: Complex values per piece of frames on the FFT path (a piece stays in cache).
+PIECE = 1 << 17
 
 
 class PolyphaseBank:
@@ -190,7 +192,7 @@ class PolyphaseBank:
             y = scipy.fft.ifft(Y, axis=1, overwrite_x=True)[:, :S]
             np.multiply(y.transpose(2, 0, 1), phase, out=out[:, f0:f1])
 
-        per = max(1, (1 << 17) // (N * M))  # frames per piece: a piece stays in cache
+        per = max(1, PIECE // (N * M))  # frames per piece: a piece stays in cache
         pieces = [(f, min(nb, f + per)) for f in range(0, nb, per)]
         if FFT_WORKERS > 1 and len(pieces) > 1:
             list(_pool().map(lambda r: run(*r), pieces))
