@@ -105,3 +105,16 @@ def test_bad_layouts_are_refused():
         PolyphaseBank(np.ones(32), 8, 2, keep=[8])
     with pytest.raises(ChannelizerError, match="method"):
         PolyphaseBank(np.ones(32), 8, 2, method="blas")
+
+
+@pytest.mark.parametrize("M,O,K", [(16, 1, 14), (16, 4, 4), (18, 3, 5)])
+def test_kept_bins_equal_the_same_bins_of_the_whole_bank(rng, M, O, K):
+    # a subset of bins is those columns of the whole bank, on either branch-filter path
+    # (the DFT of a subset of outputs is that subset: common practice)
+    h = scipy.signal.firwin(K * M, 1.0 / M)
+    x = noise(rng, 3000).astype(np.complex64)
+    keep = [0, 3, 4, 5, M - 1]
+    whole = np.concatenate(feed(PolyphaseBank(h, M, O, method="direct"), x, [3000]))
+    for method in ("fft", "direct"):
+        part = np.concatenate(feed(PolyphaseBank(h, M, O, keep=keep, method=method), x, [700, 5]))
+        np.testing.assert_allclose(part, whole[:, keep], rtol=0, atol=1e-5)
