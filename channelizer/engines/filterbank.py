@@ -122,9 +122,6 @@ class PolyphaseBank:
         self.method = method if method != "auto" else "fft" if self.K * O >= FFT_FROM_TAPS else "direct"
         if self.method == "fft":
             self._N, self._Cf = _correlation_spectra(hr, O, self.decimation)
-            # the M-point FFT as O D-point ones: bin k = c + O j is entry (c, j)
-            k = np.arange(M) if self.keep is None else self.keep
-            self._fft_runs = None if O == 1 and self.keep is None else _runs((k % O) * self.decimation + k // O)
             self._S = (self._N - self.K * O + 1) // O * O  # new rows per frame
         else:
             self._h2 = np.repeat(hr, 2, axis=1)
@@ -154,12 +151,12 @@ class PolyphaseBank:
                     o += t
         return out.view(np.complex64)
 
-    def _take_kept(self, y, runs=None):
+    def _take_kept(self, y):
         """The kept bins of ``y`` (bins on the last axis), by strided runs (far quicker than a gather)."""
-        if runs is None:
+        if self.keep is None:
             return y
-        out = np.empty(y.shape[:-1] + (self.keep.size if self.keep is not None else self.bins,), np.complex64)
-        for d0, first, count, step in runs:
+        out = np.empty(y.shape[:-1] + (self.keep.size,), np.complex64)
+        for d0, first, count, step in self._runs:
             out[..., d0 : d0 + count] = y[..., first : first + (count - 1) * step + 1 : step]
         return out
 
@@ -190,9 +187,8 @@ class PolyphaseBank:
 
         def run(f0, f1):
             F = scipy.fft.fft(frames[f0:f1], axis=1)  # (frames, N, D)
-            V = F[:, :, None, :] * self._Cf  # (frames, N, O, D)
-            Y = scipy.fft.fft(V, axis=3, overwrite_x=True).reshape(f1 - f0, N, M)
-            Y = self._take_kept(Y, self._fft_runs)
+            U = (F[:, :, None, :] * self._Cf).reshape(f1 - f0, N, M)
+            Y = self._take_kept(scipy.fft.fft(U, axis=2, overwrite_x=True))
             y = scipy.fft.ifft(Y, axis=1, overwrite_x=True)[:, :S]
             np.multiply(y.transpose(2, 0, 1), phase, out=out[:, f0:f1])
 
@@ -230,7 +226,7 @@ class PolyphaseBank:
             u = self._branches(buf, n_new)  # a fresh array: the FFT may overwrite it
             y = scipy.fft.fft(u, axis=1, overwrite_x=True, workers=FFT_WORKERS)
             out = np.empty((M if self.keep is None else self.keep.size, n_new), np.complex64)
-            out[:] = self._take_kept(y, self._runs).T
+            out[:] = self._take_kept(y).T
             for c in range(O):  # outputs n with n % O == c: rows i = (c - n_out) mod O, step O
                 out[:, (c - first_c) % O :: O] *= self._phase[c][:, None]
         self._hist = buf[n_new * D :].copy()
@@ -264,19 +260,14 @@ def _pool():
 
 
 def _correlation_spectra(hr, O, D):
-    """FFT length ``N`` and the correlation spectra ``(N, O, D)`` (see ``PolyphaseBank._by_fft``)."""
+    """FFT length ``N`` and ``conj(FFT_N(c_t))`` laid out ``(N, O, D)`` (see ``_branches_fft``)."""
     K, M = hr.shape
     L = K * O
     N = max(64, 1 << int(np.ceil(np.log2(8 * L))))
     c = np.zeros((N, O, D), np.float64)  # c[l, a, b] = c_{aD+b}[l]
     for a in range(O):
         c[a : L : O, a, :] = hr[:, a * D : (a + 1) * D]
-    Cf = np.conj(np.fft.fft(c, axis=0))  # (N, O, D): conj(FFT_N(c_t)), t = aD + b
-    # the M-point FFT over t = aD + b at bin k = c + O j is the D-point FFT over b of
-    # exp(-2j pi c b / M) sum_a U[a, b] exp(-2j pi c a / O): fold those factors in here
-    ca = np.exp(-2j * np.pi * np.outer(np.arange(O), np.arange(O)) / O)  # [c, a]
-    cb = np.exp(-2j * np.pi * np.outer(np.arange(O), np.arange(D)) / (O * D))  # [c, b]
-    return N, (np.einsum("fab,ca->fcb", Cf, ca) * cb).astype(np.complex64)
+    return N, np.conj(np.fft.fft(c, axis=0)).astype(np.complex64)
 
 
 class BankChannelizer:
