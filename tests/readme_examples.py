@@ -39,8 +39,13 @@ INPUTS = ("captures", "plans")
 #: The plan file the plan file reference is taken from (written by the first plan example).
 PLAN_REFERENCE_SOURCE = "wide.yaml"
 
-#: Output that differs from run to run: extract's wall time and speed.
-VOLATILE = (re.compile(r"\d+\.\d+ s \(\d+\.\d+ Msps\)"),)
+#: Output that differs from run to run: extract's wall time and speed, and bench's
+#: timings and the ratios between them.
+VOLATILE = (
+    re.compile(r"\d+\.\d+ s \(\d+\.\d+ Msps\)"),
+    re.compile(r"\d+\.\d+ s/s +\d+\.\d+ x real time"),
+    re.compile(r" {2,}\d+\.\d+ x(?= |$)"),
+)
 
 _ELISION = "..."
 _NUMBER = re.compile(r"[-+]?\d+(?:\.\d+)?(?:e[-+]?\d+)?")

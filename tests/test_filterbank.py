@@ -39,11 +39,12 @@ def feed(runner, x, sizes):
     return out
 
 
-@pytest.mark.parametrize("M,O,K", [(16, 2, 3), (16, 4, 2), (12, 3, 4), (8, 1, 5)])
-def test_every_bin_equals_mix_and_upfirdn(rng, M, O, K):
+@pytest.mark.parametrize("method", ["fft", "direct"])
+@pytest.mark.parametrize("M,O,K", [(16, 2, 3), (16, 4, 2), (12, 3, 4), (8, 1, 5), (8, 1, 27)])
+def test_every_bin_equals_mix_and_upfirdn(rng, M, O, K, method):
     h = scipy.signal.firwin(K * M, 1.0 / M)
     x = noise(rng, 1500)
-    bank = PolyphaseBank(h, M, O)
+    bank = PolyphaseBank(h, M, O, method=method)
     y = np.concatenate(feed(bank, x.astype(np.complex64), [7, 300, 1, 64]))
     D = M // O
     assert y.shape == (x.size // D, M)  # floor(N / D) outputs (common practice)
@@ -52,11 +53,12 @@ def test_every_bin_equals_mix_and_upfirdn(rng, M, O, K):
         assert np.max(np.abs(y[:, k] - ref)) < 1e-5 * np.max(np.abs(ref))
 
 
-def test_output_does_not_depend_on_block_size(rng):
+@pytest.mark.parametrize("method", ["fft", "direct"])
+def test_output_does_not_depend_on_block_size(rng, method):
     h = scipy.signal.firwin(6 * 32, 1.0 / 32)
     x = noise(rng, 5000).astype(np.complex64)
-    a = np.concatenate(feed(PolyphaseBank(h, 32, 2, keep=[0, 5, 31]), x, [5000]))
-    b = np.concatenate(feed(PolyphaseBank(h, 32, 2, keep=[0, 5, 31]), x, [1, 17, 999, 3]))
+    a = np.concatenate(feed(PolyphaseBank(h, 32, 2, keep=[0, 5, 31], method=method), x, [5000]))
+    b = np.concatenate(feed(PolyphaseBank(h, 32, 2, keep=[0, 5, 31], method=method), x, [1, 17, 999, 3]))
     assert a.shape == b.shape == (5000 // 16, 3)
     np.testing.assert_allclose(a, b, rtol=0, atol=1e-6)
 
@@ -101,3 +103,18 @@ def test_bad_layouts_are_refused():
         PolyphaseBank(np.ones(30), 8, 2)
     with pytest.raises(ChannelizerError, match="keep"):
         PolyphaseBank(np.ones(32), 8, 2, keep=[8])
+    with pytest.raises(ChannelizerError, match="method"):
+        PolyphaseBank(np.ones(32), 8, 2, method="blas")
+
+
+@pytest.mark.parametrize("M,O,K", [(16, 1, 14), (16, 4, 4), (18, 3, 5)])
+def test_kept_bins_equal_the_same_bins_of_the_whole_bank(rng, M, O, K):
+    # a subset of bins is those columns of the whole bank, on either branch-filter path
+    # (the DFT of a subset of outputs is that subset: common practice)
+    h = scipy.signal.firwin(K * M, 1.0 / M)
+    x = noise(rng, 3000).astype(np.complex64)
+    keep = [0, 3, 4, 5, M - 1]
+    whole = np.concatenate(feed(PolyphaseBank(h, M, O, method="direct"), x, [3000]))
+    for method in ("fft", "direct"):
+        part = np.concatenate(feed(PolyphaseBank(h, M, O, keep=keep, method=method), x, [700, 5]))
+        np.testing.assert_allclose(part, whole[:, keep], rtol=0, atol=1e-5)

@@ -45,6 +45,11 @@ class BankVerification:
     meets_spec: bool
     tones: list = field(default_factory=list)
 
+    @property
+    def verdict(self):
+        """``'meets'`` or ``'does not meet'``, as a chain's verification states it."""
+        return "meets" if self.meets_spec else "does not meet"
+
     def to_json(self, *, indent=1):
         return json.dumps(asdict(self), indent=indent) + "\n"
 

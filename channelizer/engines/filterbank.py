@@ -22,7 +22,8 @@ the commutator) go through one ``M``-point DFT per output, and the factor
 ``exp(-2j pi k nD / M)`` becomes the circular shift of the branch outputs by
 ``s = nD mod M`` (it takes ``O`` values) before the DFT.  Written with the
 time-reversed window ``u[r] = sum_m h[KM-1-mM-r] x[nD-KM+1+mM+r]``
-(``v_p = u[M-1-p]``), ``y[n] = FFT_M(roll(u, s + 1))``.  Cost per input sample:
+(``v_p = u[M-1-p]``), ``y[n] = FFT_M(roll(u, s + 1))``, computed as
+``FFT_M(u)[k] exp(-2j pi k (s + 1) / M)`` on the kept bins (shift theorem).  Cost per input sample:
 ``K O`` real-by-complex multiplies plus one ``M``-point FFT per ``D`` inputs.
 
 A channel at offset ``f_c`` from the capture centre takes the bin ``k`` nearest
@@ -54,6 +55,14 @@ from .streaming import _EMPTY, _as_block, _check_factor, _check_taps
 
 __all__ = ["PolyphaseBank", "BankChannelizer"]
 
+#: Threads for the FFTs (rows are independent; the targets count 2 cores).
+FFT_WORKERS = 2
+#: Branch filters by FFT correlation from this many taps per input sample (``K O``) on;
+#: below it the element-wise passes are quicker.
+FFT_FROM_TAPS = 12
+#: Complex values per piece of frames on the FFT path (a piece stays in cache).
+PIECE = 1 << 17
+
 
 class PolyphaseBank:
     """Streaming oversampled polyphase DFT analysis bank (see the module docstring).
@@ -68,6 +77,10 @@ class PolyphaseBank:
         ``O``; ``M`` must be a multiple of it.  The bank decimates by ``M / O``.
     keep : sequence of int, optional
         Bins whose outputs are returned (all by default).
+    method : {'auto', 'fft', 'direct'}
+        How the branch filters run: overlap-save FFT correlation, or ``K``
+        element-wise passes; ``'auto'`` takes FFT from ``FFT_FROM_TAPS`` taps per
+        input sample on.  Both compute the same sums.
 
     Examples
     --------
@@ -79,7 +92,7 @@ class PolyphaseBank:
 
     interpolation = 1
 
-    def __init__(self, prototype, bins, oversampling, *, keep=None):
+    def __init__(self, prototype, bins, oversampling, *, keep=None, method="auto"):
         h = _check_taps(prototype, "prototype")
         if np.iscomplexobj(h):
             raise ChannelizerError("prototype: expected real taps")
@@ -97,13 +110,19 @@ class PolyphaseBank:
         if self.keep is not None and (self.keep.ndim != 1 or self.keep.size == 0 or self.keep.min() < 0 or self.keep.max() >= M):
             raise ChannelizerError(f"keep: expected bin numbers from 0 to {M - 1}")
         self._runs = None if self.keep is None else _runs(self.keep)
+        k = np.arange(M) if self.keep is None else self.keep
+        shifts = (np.arange(O)[:, None] * (M // O) + 1) % M  # s + 1 for n % O == c
+        self._phase = np.exp(-2j * np.pi * ((k[None, :] * shifts) % M) / M).astype(np.complex64)
         # hr[m, r] = h[KM-1-mM-r], laid out as float32 pairs to multiply I and Q alike
         hr = h[::-1].reshape(self.K, M).astype(np.float32)
-        # branch filters as one batched matrix product when few taps are structural
-        # zeros (O <= 2); otherwise K element-wise passes (see _branches)
-        self._blas = O <= 2
-        if self._blas:
-            self._G, self._B, self._Q = _branch_matrices(hr, O, self.decimation)
+        # branch filters by overlap-save FFT correlation, or K element-wise passes
+        # (short prototypes, or on request: see _branches)
+        if method not in ("auto", "fft", "direct"):
+            raise ChannelizerError(f"method: expected 'auto', 'fft' or 'direct', got {method!r}")
+        self.method = method if method != "auto" else "fft" if self.K * O >= FFT_FROM_TAPS else "direct"
+        if self.method == "fft":
+            self._N, self._Cf = _correlation_spectra(hr, O, self.decimation)
+            self._S = (self._N - self.K * O + 1) // O * O  # new rows per frame
         else:
             self._h2 = np.repeat(hr, 2, axis=1)
             self._rows = max(16, 32768 // M)  # rows per pass: the pass stays in cache
@@ -112,13 +131,8 @@ class PolyphaseBank:
         self.n_out = 0
 
     def _branches(self, buf, n_new):
-        """``u[n, t] = sum_m hr[m, t] buf[nD + mM + t]`` for ``n < n_new`` (at least).
-
-        Returned as a float32 view ``(R, J, O, D, 2)``: ``n = r J + j``, ``t = a D + b``,
-        real and imaginary parts last.
-        """
-        if self._blas:
-            return self._branches_product(buf, n_new)
+        """``u[n, t] = sum_m hr[m, t] buf[nD + mM + t]`` for ``n < n_new``, by ``K``
+        element-wise passes; complex64 ``(n_new, M)``."""
         M, D, K = self.bins, self.decimation, self.K
         fb = buf.view(np.float32)
         out = np.empty((n_new, 2 * M), np.float32)
@@ -135,34 +149,64 @@ class PolyphaseBank:
                 else:
                     np.multiply(w, self._h2[m], out=t)
                     o += t
-        return out.reshape(n_new, 1, self.oversampling, D, 2)
+        return out.view(np.complex64)
 
-    def _branches_product(self, buf, n_new):
-        """:meth:`_branches` as one batched product over the ``D`` input phases.
+    def _take_kept(self, y):
+        """The kept bins of ``y`` (bins on the last axis), by strided runs (far quicker than a gather)."""
+        if self.keep is None:
+            return y
+        out = np.empty(y.shape[:-1] + (self.keep.size,), np.complex64)
+        for d0, first, count, step in self._runs:
+            out[..., d0 : d0 + count] = y[..., first : first + (count - 1) * step + 1 : step]
+        return out
 
-        With ``t = aD + b`` and ``S_b[i] = buf[iD + b]``,
-        ``u[n, aD + b] = sum_l g_ab[l] S_b[n + l]``, ``l = a + mO < KO``,
-        ``g_ab[a + mO] = hr[m, aD + b]``; rows of ``B`` samples of every ``S_b``
-        (I and Q as separate rows) times ``G_b`` give ``Q`` partial sums per output.
+    def _by_fft(self, buf, n_new, first_c):
+        """The kept bins' outputs ``(len(keep), n_new)``, shift phase included, by
+        overlap-save correlation.
+
+        With ``t = aD + b`` and ``X[i, b] = buf[iD + b]``,
+        ``u[n, t] = sum_l c_t[l] X[n + l, b]``, ``c_t[mO + a] = hr[m, t]`` (``l < KO``):
+        frames of ``N`` rows of ``X`` (``S <= N - KO + 1`` apart, ``S`` a multiple of
+        ``O``) are transformed along time, multiplied by ``conj(FFT_N(c_t))`` for every
+        ``t``, given the ``M``-point FFT over ``t`` (it commutes with the transform
+        along time) and, for the kept bins only, transformed back; the first ``S``
+        rows of each frame are exact (no circular wrap).  Frames run in
+        ``FFT_WORKERS`` threads (numpy and the FFT release the GIL).
         """
-        D, O, K = self.decimation, self.oversampling, self.K
-        B, Q = self._B, self._Q
-        rows = -(-n_new // B)
-        need = (rows + Q - 1) * B
-        L = min(n_new + K * O - 1, buf.size // D)
-        S = np.zeros((D, 2, need), np.float32)
-        seq = buf[: L * D].view(np.float32).reshape(L, D, 2)
-        S[:, :, :L] = seq.transpose(1, 2, 0)
-        Z = np.matmul(S.reshape(D, 2 * need // B, B), self._G)  # (D, 2 need/B, Q O B)
-        Z = Z.reshape(D, 2, need // B, Q, O, B)
-        y = Z[:, :, :rows, 0].copy()
-        for q in range(1, Q):
-            y += Z[:, :, q : q + rows, q]
-        # (D, 2, rows, O, B) seen as u[n = tB + j, aD + b]
-        return y.transpose(2, 4, 3, 0, 1)
+        D, O, N, M = self.decimation, self.oversampling, self._N, self.bins
+        S = self._S
+        nb = -(-n_new // S)
+        rows = min(buf.size // D, (nb - 1) * S + N)
+        X = np.zeros(((nb - 1) * S + N, D), np.complex64)  # every frame lies inside X
+        X[:rows] = buf[: rows * D].reshape(rows, D)
+        s0, s1 = X.strides
+        frames = np.lib.stride_tricks.as_strided(X, shape=(nb, N, D), strides=(S * s0, s0, s1), writeable=False)
+        nk = M if self.keep is None else self.keep.size
+        out = np.empty((nk, nb, S), np.complex64)
+        phase = self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
+
+        def run(f0, f1):
+            F = scipy.fft.fft(frames[f0:f1], axis=1)  # (frames, N, D)
+            U = (F[:, :, None, :] * self._Cf).reshape(f1 - f0, N, M)
+            Y = self._take_kept(scipy.fft.fft(U, axis=2, overwrite_x=True))
+            y = scipy.fft.ifft(Y, axis=1, overwrite_x=True)[:, :S]
+            np.multiply(y.transpose(2, 0, 1), phase, out=out[:, f0:f1])
+
+        per = max(1, PIECE // (N * M))  # frames per piece: a piece stays in cache
+        pieces = [(f, min(nb, f + per)) for f in range(0, nb, per)]
+        if FFT_WORKERS > 1 and len(pieces) > 1:
+            list(_pool().map(lambda r: run(*r), pieces))
+        else:
+            for r in pieces:
+                run(*r)
+        return out.reshape(nk, nb * S)[:, :n_new]
 
     def process(self, block):
         """Feed the next block; returns ``(n_new, len(keep))`` complex64 bin outputs."""
+        return self.process_by_bin(block).T
+
+    def process_by_bin(self, block):
+        """As :meth:`process`, laid out ``(len(keep), n_new)``: one contiguous row per bin."""
         x = _as_block(block)
         M, D, O = self.bins, self.decimation, self.oversampling
         total = self.n_in + x.size
@@ -172,31 +216,21 @@ class PolyphaseBank:
         self.n_in = total
         if n_new <= 0:
             self._hist = buf
-            return np.zeros((0, M if self.keep is None else self.keep.size), np.complex64)
-        u = self._branches(buf, n_new)
-        R, J = u.shape[:2]
-        z = np.empty((R, J, M, 2), np.float32)
-        for c in range(O):
-            # z[n] = roll(u[n], s + 1), s = nD mod M = (n mod O) D: rows (J == 1) or
-            # columns j (J a multiple of O) of the outputs n with n % O == c
-            first = (c - self.n_out) % O
-            pick = (slice(first, None, O), slice(None)) if J == 1 else (slice(None), slice(first, None, O))
-            shift = (c * D + 1) % M
-            for a in range(O):
-                d0 = (a * D + shift) % M  # where u's block a begins in z; it may wrap
-                cut = min(D, M - d0)
-                z[pick + (slice(d0, d0 + cut),)] = u[pick + (a, slice(0, cut))]
-                if cut < D:
-                    z[pick + (slice(0, D - cut),)] = u[pick + (a, slice(cut, D))]
-        z = z.reshape(R * J, M * 2).view(np.complex64)[:n_new]
-        y = scipy.fft.fft(z, axis=1, overwrite_x=True)
+            return np.zeros((M if self.keep is None else self.keep.size, 0), np.complex64)
+        # the circular shift roll(u, s + 1), s = nD mod M, is applied after the FFT as
+        # the phase exp(-2j pi k (s + 1) / M) on the kept bins only (shift theorem)
+        first_c = self.n_out % O
+        if self.method == "fft":
+            out = self._by_fft(buf, n_new, first_c)
+        else:
+            u = self._branches(buf, n_new)  # a fresh array: the FFT may overwrite it
+            y = scipy.fft.fft(u, axis=1, overwrite_x=True, workers=FFT_WORKERS)
+            out = np.empty((M if self.keep is None else self.keep.size, n_new), np.complex64)
+            out[:] = self._take_kept(y).T
+            for c in range(O):  # outputs n with n % O == c: rows i = (c - n_out) mod O, step O
+                out[:, (c - first_c) % O :: O] *= self._phase[c][:, None]
         self._hist = buf[n_new * D :].copy()
         self.n_out = m_end
-        if self.keep is None:
-            return y
-        out = np.empty((n_new, self.keep.size), np.complex64)
-        for d0, first, count, step in self._runs:  # strided copies: far quicker than a gather
-            out[:, d0 : d0 + count] = y[:, first : first + (count - 1) * step + 1 : step]
         return out
 
 
@@ -213,24 +247,27 @@ def _runs(keep):
     return runs
 
 
-def _branch_matrices(hr, O, D):
-    """``G[b, i, q, a, j] = g_ab[qB + i - j]`` (zero outside ``0 .. KO-1``), and ``B``, ``Q``."""
-    K = hr.shape[0]
-    KO = K * O
-    B = max(16, -(-KO // 8) * 8)
-    Q = -(-(KO - 1 + B) // B)
-    g = np.zeros((D, O, KO), np.float32)  # g[b, a, l]
+_POOL = []
+
+
+def _pool():
+    """The shared worker threads of the FFT path (made on first use)."""
+    if not _POOL:
+        from concurrent.futures import ThreadPoolExecutor
+
+        _POOL.append(ThreadPoolExecutor(FFT_WORKERS, thread_name_prefix="bank"))
+    return _POOL[0]
+
+
+def _correlation_spectra(hr, O, D):
+    """FFT length ``N`` and ``conj(FFT_N(c_t))`` laid out ``(N, O, D)`` (see ``_branches_fft``)."""
+    K, M = hr.shape
+    L = K * O
+    N = max(64, 1 << int(np.ceil(np.log2(8 * L))))
+    c = np.zeros((N, O, D), np.float64)  # c[l, a, b] = c_{aD+b}[l]
     for a in range(O):
-        g[:, a, a::O] = hr[:, a * D : (a + 1) * D].T
-    i = np.arange(B)[:, None, None]
-    q = np.arange(Q)[None, :, None]
-    j = np.arange(B)[None, None, :]
-    lag = q * B + i - j  # (B, Q, B)
-    valid = (lag >= 0) & (lag < KO)
-    G = np.zeros((D, B, Q, O, B), np.float32)
-    for a in range(O):
-        G[:, :, :, a, :] = np.where(valid[None], g[:, a, np.clip(lag, 0, KO - 1)], 0)
-    return np.ascontiguousarray(G.reshape(D, B, Q * O * B)), B, Q
+        c[a : L : O, a, :] = hr[:, a * D : (a + 1) * D]
+    return N, np.conj(np.fft.fft(c, axis=0)).astype(np.complex64)
 
 
 class BankChannelizer:
@@ -281,9 +318,6 @@ class BankChannelizer:
 
     def process(self, block):
         """Feed one block; returns one complex64 array per channel, in order."""
-        y = self.bank.process(block)
-        if y.shape[0] == 0:
-            cols = [_EMPTY] * y.shape[1]
-        else:
-            cols = list(np.ascontiguousarray(y.T))
+        y = self.bank.process_by_bin(block)
+        cols = [_EMPTY] * y.shape[0] if y.shape[1] == 0 else list(y)
         return [cols[c] if ch is None else ch.process(cols[c]) for c, ch in zip(self._cols, self._chains)]
