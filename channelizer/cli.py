@@ -408,8 +408,7 @@ def _cmd_verify(args):
     if args.json:
         write_text_atomic(args.json, v.to_json())
         print(f"measurements written to {args.json}")
-    verdict = getattr(v, "verdict", None) or ("meets" if v.meets_spec else "does not meet")  # a bank check has no "inconclusive"
-    return {"meets": 0, "does not meet": 1}.get(verdict, EXIT_INCONCLUSIVE)
+    return {"meets": 0, "does not meet": 1}.get(v.verdict, EXIT_INCONCLUSIVE)
 
 
 def _register_verify(sub):

@@ -59,7 +59,7 @@ class BankVerification:
             f"passband ripple      measured {self.measured_ripple_db:.4f} dB, predicted {self.predicted_ripple_db:.4f} dB, target {self.ripple_target_db:g} dB",
             f"alias rejection      measured {self.measured_alias_db:.2f} dB, predicted {self.predicted_alias_db:.2f} dB, target {self.rejection_target_db:g} dB",
             f"adjacent rejection   measured {self.measured_adjacent_db:.2f} dB, predicted {self.predicted_adjacent_db:.2f} dB, target {self.rejection_target_db:g} dB",
-            f"verdict: {'meets' if self.meets_spec else 'does not meet'} the spec",
+            f"verdict: {self.verdict} the spec",
         ]
 
 
