@@ -318,7 +318,8 @@ def _cmd_survey(args):
         from .run.survey_plans import plan_signals
 
         list_dir = os.path.dirname(os.path.abspath(args.channels_out)) if args.channels_out else None
-        rows, problems = plan_signals(rows, args.plans_out, fs=capture.sample_rate, list_dir=list_dir)
+        rows, problems = plan_signals(rows, args.plans_out, fs=capture.sample_rate, list_dir=list_dir,
+                                      inputs=[capture.path, capture.data_path], others=[args.plot, args.channels_out])
         for line in problems:
             print(f"warning: {line}", file=sys.stderr)
         print(f"{sum('plan' in r for r in rows)} plan(s) written to {args.plans_out}")

@@ -142,6 +142,23 @@ def test_survey_plans_out_feeds_extract(tone_capture, tmp_path, capsys):
     assert main(["extract", cap, "--channels", str(lst), "--out", str(tmp_path / "x"), "--no-plots", "--quiet"]) == 0
 
 
+def test_survey_plans_never_replace_the_channel_list_or_the_capture(tone_capture, tmp_path, capsys):
+    # Every file a command writes is checked against every file it reads and against its
+    # other outputs (README, reliability).  Before, a channel list named like a plan file
+    # (NAME.yaml in the plans folder) was written over the plan just written there.
+    cap, _, _ = tone_capture
+    plans = tmp_path / "plans"
+    assert main(["survey", cap, "--channels-out", str(tmp_path / "found.yaml"), "--plans-out", str(plans), "--quiet"]) == 0
+    capsys.readouterr()
+    name = yaml.safe_load((tmp_path / "found.yaml").read_text())[0]["name"]
+    clash = plans / f"{name}.yaml"
+    before = clash.read_bytes()
+    status = main(["survey", cap, "--channels-out", str(clash), "--plans-out", str(plans), "--quiet"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert status == 2 and len(err) == 1 and "named twice as an output" in err[0]
+    assert clash.read_bytes() == before
+
+
 def test_demo_capture_folder_is_created(tmp_path, capsys):
     base = tmp_path / "gen" / "x"
     assert main(["demo", "--write-capture", str(base)]) == 0

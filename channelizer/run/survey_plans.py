@@ -11,12 +11,13 @@ import os
 
 from ..errors import ChannelizerError
 from ..io.atomic import write_text_atomic
+from ..io.paths import check_outputs
 from .processor import _prepare_out_dir
 
 __all__ = ["plan_signals"]
 
 
-def plan_signals(channels, out_dir, *, fs, list_dir=None):
+def plan_signals(channels, out_dir, *, fs, list_dir=None, inputs=(), others=()):
     """Plan each channel of a survey's channel list and write ``out_dir/NAME.yaml``.
 
     Parameters
@@ -31,6 +32,10 @@ def plan_signals(channels, out_dir, *, fs, list_dir=None):
     list_dir : str, optional
         Folder of the channel list the plans will be named in; each ``plan`` path
         is relative to it (default: the current folder).
+    inputs : iterable of str
+        Files the command reads (the capture): no plan file may be one of them.
+    others : iterable of str
+        The command's other outputs (its plot, its channel list): no plan file may be one of them.
 
     Returns
     -------
@@ -42,6 +47,8 @@ def plan_signals(channels, out_dir, *, fs, list_dir=None):
     from ..planning.spec import ChainSpec
 
     _prepare_out_dir(out_dir)
+    # every file this command writes, checked against what it reads and against each other
+    check_outputs([os.path.join(out_dir, f"{ch['name']}.yaml") for ch in channels] + list(others), inputs=inputs)
     base = os.path.abspath(list_dir if list_dir is not None else os.curdir)
     rows, problems = [], []
     for ch in channels:
