@@ -123,6 +123,20 @@ def plans(draw):
     return Plan(input_rate, output_rate, bandwidth, spec, tuple(stages), predicted)
 
 
+def test_wide_hogenauer_registers_round_trip():
+    # Found by the property below: 60-bit input, N = 9, R = 48, M = 4 needs
+    # 60 + ceil(9 log2 192) = 60 + 69 = 129-bit registers (Hogenauer 1981, Bmax; from memory), one
+    # more than the plan reader used to accept, so a valid plan could not be read back.
+    bits = {"input": 60, "output": 1}
+    regs = cic_registers(9, 48, 4, input_bits=60, output_bits=1)
+    assert regs.full_bits == 60 + math.ceil(9 * math.log2(48 * 4)) == 129
+    plan = Plan(1000.0, 1000.0 / 96, 5.0, {"ripple_db": 1.0, "rejection_db": 1.0, "bits": bits},
+                (CicStage(2, 1, 1, cic_registers(1, 2, 1, input_bits=60, output_bits=1).full_bits, ()),
+                 CicStage(48, 9, 4, regs.full_bits, ())),
+                {"passband_ripple_db": 0.0, "alias_rejection_db": 0.0, "multiplies_per_input_sample": 0.0})
+    assert Plan.from_yaml(plan.to_yaml(), source="wide") == plan
+
+
 @settings(max_examples=120, deadline=None)
 @given(plan=plans())
 def test_plan_round_trips_through_yaml(plan):

@@ -41,6 +41,10 @@ MAX_PLAN_BYTES = 16 * 1024 * 1024
 MAX_TAP = 1e6
 #: Widest coefficient a plan may hold: the export writes each as a C ``int32_t``.
 MAX_COEFFICIENT_BITS = 32
+#: Widest CIC register a plan may state.  Hogenauer's width is the input width plus
+#: N log2(RM): 64-bit input (the most a spec states) and N = 10, RM = 256 need 144 bits,
+#: and the integer model is exact at any width (dsp/wide_int.py).
+MAX_REGISTER_BITS = 256
 
 
 class PlanText:
@@ -380,7 +384,7 @@ class _Validator:
             order = self.integer(s, "order", f"{where}.order", lo=1, hi=10)
             dec = self.integer(s, "decimation", f"{where}.decimation", lo=2, hi=1 << 20)
             m = self.integer(s, "differential_delay", f"{where}.differential_delay", lo=1, hi=4)
-            reg = self.integer(s, "register_bits", f"{where}.register_bits", lo=1, hi=128)
+            reg = self.integer(s, "register_bits", f"{where}.register_bits", lo=1, hi=MAX_REGISTER_BITS)
             pruned = s.get("pruned_bits", [])
             if not isinstance(pruned, list) or any(isinstance(p, bool) or not isinstance(p, int) or p < 0 for p in pruned):
                 self.fail(f"{where}.pruned_bits", "expected a list of non-negative integers")
