@@ -234,9 +234,10 @@ def test_bit_true_dc_offset_is_a_spur_not_an_alias(tmp_path):
     # 8 Msps -> 8 ksps, 3 kHz, 90 dB: alias tones such as 415995 Hz land 5 Hz from DC
     # (415995 - 52 x 8000 = -5, arithmetic), on top of the integer path's constant offset.
     # Hogenauer's pruning floors the first integrator's input by d1 bits (the plan's
-    # pruned_bits[0]): a mean of -(2^d1 - 1)/2 input LSBs, 20 log10((2^d1 - 1) / 2 / 32768)
-    # dBFS at most once the roundings after it are added (Hogenauer 1981, truncation
-    # error mean); d1 = 3 gives -79.4 dBFS, d1 = 4 gives -72.8 dBFS.
+    # pruned_bits[0], which is what the chain builds): a mean of -(2^d1 - 1)/2 input LSBs
+    # on each rail (Hogenauer 1981, truncation error mean; the later sources see the combs'
+    # zeros at DC), so a complex offset of sqrt(2) (2^d1 - 1) / 2 / 32768 of full scale,
+    # give or take the half-up roundings after it; d1 = 3 gives -76.4 dBFS.
     from channelizer.checks.verify import verify_plan
     from channelizer.planning.plan import Plan
     from channelizer.planning.stages import CicStage
@@ -244,7 +245,7 @@ def test_bit_true_dc_offset_is_a_spur_not_an_alias(tmp_path):
     path = _plan_file(tmp_path, "p.yaml", input_rate=8e6, bandwidth=3e3, output_rate=8e3, rejection_db=90.0)
     plan = Plan.from_yaml(open(path).read())
     d1 = next(st for st in plan.stages if isinstance(st, CicStage)).pruned_bits[0]
-    bound = 20 * math.log10(max(2**d1 - 1, 1) / 2 / 32768)
+    bound = 20 * math.log10(math.sqrt(2) * max(2**d1 - 1, 1) / 2 / 32768)
     v = verify_plan(plan, bit_true=True)
     near = [t for t in v.aliases if abs(t.landing_hz) < 10.0]
     assert near, "the sweep must hold a tone landing next to DC"

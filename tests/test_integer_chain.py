@@ -52,8 +52,10 @@ def _plan(stages, *, input_rate, output_rate, bandwidth=12.5e3, bits=16):
     return Plan.from_dict(data)
 
 
-def _cic_dict(order, decimation, bits=16):
-    regs = cic_registers(order, decimation, input_bits=bits, output_bits=bits)
+def _cic_dict(order, decimation, bits=16, last=True):
+    # Hogenauer's widths for the word leaving the CIC: the chain's output when it is the
+    # last stage, one fraction bit more when FIRs follow (the chain's convention)
+    regs = cic_registers(order, decimation, input_bits=bits, output_bits=bits if last else bits + 1)
     return {"kind": "cic", "decimation": decimation, "order": order, "differential_delay": 1,
             "register_bits": regs.full_bits, "pruned_bits": list(regs.discarded)}
 
@@ -65,7 +67,7 @@ def halfband_plan():
     ch = design_decimator(6250.0, 2, fs=48e3, dp=0.005, ds=1e-4)
     taps = np.asarray(ch.taps) / np.sum(ch.taps)
     return _plan(
-        [_cic_dict(5, 16),
+        [_cic_dict(5, 16, last=False),
          {"kind": "halfband", "role": "halfband", "decimation": 2, "taps": [float(t) for t in hb.taps]},
          {"kind": "fir", "role": "channel", "decimation": 2, "taps": [float(t) for t in taps]}],
         input_rate=1.536e6, output_rate=24e3,

@@ -32,7 +32,7 @@ from channelizer.planning.plan import PLAN_FORMAT, Plan
 from channelizer.planning.planner import plan_chain
 from channelizer.io.sigmf_writer import write_sigmf
 from channelizer.planning.spec import ChainSpec
-from channelizer.planning.hogenauer import cic_registers
+from channelizer.planning.hogenauer import cic_registers, planned_cic
 from channelizer.planning.stages import CicStage, FirStage, ResamplerStage, chain_rates
 from channelizer.units import MAX_HZ, MIN_HZ
 from channelizer.views.table import format_plan
@@ -67,11 +67,23 @@ def halfband_taps(draw):
 
 @st.composite
 def cic_stages(draw, bits):
-    """A CIC with Hogenauer's widths for the spec's bits (a plan may state no others)."""
+    """A CIC; its widths are set by ``_chain_widths`` once its place in the chain is known."""
     order, dec, m = draw(st.integers(1, 10)), draw(st.integers(2, 64)), draw(st.integers(1, 4))
-    regs = cic_registers(order, dec, m, input_bits=bits["input"], output_bits=bits["output"])
-    pruned = draw(st.sampled_from([(), tuple(regs.discarded)]))
-    return CicStage(dec, order, m, regs.full_bits, pruned)
+    pruned = draw(st.sampled_from([(), (0,)]))  # () or a placeholder for the full list
+    return CicStage(dec, order, m, 0, pruned)
+
+
+def _chain_widths(stages, bits):
+    """Every CIC with the widths the chain builds where it sits (a plan may state no others)."""
+    out = []
+    for i, s in enumerate(stages):
+        if isinstance(s, CicStage):
+            regs = planned_cic(s.order, s.decimation, s.differential_delay, bits=bits,
+                               first=i == 0, last=i == len(stages) - 1).nominal
+            s = CicStage(s.decimation, s.order, s.differential_delay, regs.full_bits,
+                         tuple(regs.discarded) if s.pruned_bits else ())
+        out.append(s)
+    return out
 
 
 @st.composite
@@ -95,6 +107,7 @@ def plans(draw):
     stages = draw(st.lists(st.one_of(cic_stages(bits), fir_stages()), min_size=0, max_size=4))
     if not stages or draw(st.booleans()):
         stages.append(draw(resampler_stages()))
+    stages = _chain_widths(stages, bits)
     input_rate = draw(st.one_of(st.floats(1e3, 1e11), st.integers(1000, 10**11).map(float)))
     output_rate = chain_rates(stages, fs=input_rate)[-1]
     assume(output_rate > 0)
@@ -130,9 +143,10 @@ def test_wide_hogenauer_registers_round_trip():
     bits = {"input": 60, "output": 1}
     regs = cic_registers(9, 48, 4, input_bits=60, output_bits=1)
     assert regs.full_bits == 60 + math.ceil(9 * math.log2(48 * 4)) == 129
+    # the second CIC takes the chain's intermediate word: output bits + 2 = 3 bits
     plan = Plan(1000.0, 1000.0 / 96, 5.0, {"ripple_db": 1.0, "rejection_db": 1.0, "bits": bits},
-                (CicStage(2, 1, 1, cic_registers(1, 2, 1, input_bits=60, output_bits=1).full_bits, ()),
-                 CicStage(48, 9, 4, regs.full_bits, ())),
+                (CicStage(48, 9, 4, regs.full_bits, ()),
+                 CicStage(2, 1, 1, cic_registers(1, 2, 1, input_bits=3, output_bits=1).full_bits, ())),
                 {"passband_ripple_db": 0.0, "alias_rejection_db": 0.0, "multiplies_per_input_sample": 0.0})
     assert Plan.from_yaml(plan.to_yaml(), source="wide") == plan
 

@@ -7,9 +7,9 @@ adds a noise term whose variance follows from the rounding mode.
 
 from dataclasses import dataclass
 
+from ..planning.hogenauer import CIC_GUARD_BITS
+
 __all__ = ["BitWidthRow", "BitWidthTable", "NoiseTerm"]
-
-
 
 
 @dataclass(frozen=True)
@@ -37,6 +37,10 @@ class BitWidthRow:
     pruned_bits : tuple of int
         CIC: the ``2N + 1`` LSB counts of Hogenauer's pruning for this stage's
         widths (integrators, combs, output); empty otherwise.
+    register_bits : int
+        CIC: Hogenauer's full width ``B_in + ceil(N log2(R M))`` (the plan's
+        ``register_bits``); each register is this plus the guard bit minus its
+        pruned LSBs.  0 otherwise.
     coefficient_bits, coefficient_frac_bits : int or None
         FIR coefficients: width and fraction bits (value = integer * 2**-frac).
     output_shift : int
@@ -60,6 +64,7 @@ class BitWidthRow:
     integrator_bits: tuple = ()
     comb_bits: tuple = ()
     pruned_bits: tuple = ()
+    register_bits: int = 0
     coefficient_bits: int | None = None
     coefficient_frac_bits: int | None = None
     output_shift: int = 0
@@ -71,7 +76,7 @@ class BitWidthRow:
 _CSV_COLUMNS = (
     "point", "kind", "rate_in_hz", "rate_out_hz", "input_bits", "output_bits", "headroom_bits",
     "accumulator_bits", "integrator_bits", "comb_bits", "pruned_bits", "coefficient_bits",
-    "coefficient_frac_bits", "output_shift", "rounding", "overflow", "lsb_full_scale",
+    "coefficient_frac_bits", "output_shift", "rounding", "overflow", "lsb_full_scale", "register_bits",
 )
 
 
@@ -111,7 +116,7 @@ class BitWidthTable:
                 r.output_bits, r.headroom_bits, r.accumulator_bits,
                 " ".join(map(str, r.integrator_bits)), " ".join(map(str, r.comb_bits)),
                 " ".join(map(str, r.pruned_bits)), r.coefficient_bits, r.coefficient_frac_bits,
-                r.output_shift, r.rounding, r.overflow, repr(float(r.lsb)),
+                r.output_shift, r.rounding, r.overflow, repr(float(r.lsb)), r.register_bits or "",
             )
             lines.append(",".join(_csv_cell(c) for c in cells))
         return "\n".join(lines) + "\n"
@@ -128,6 +133,8 @@ class BitWidthTable:
                 f"{r.headroom_bits:>4} {r.accumulator_bits:>4} {coef:>9} {r.output_shift:>4}"
             )
             if r.integrator_bits:
+                lines.append(f"{'':<18}full width {r.register_bits} (Hogenauer) + {CIC_GUARD_BITS} guard bit; "
+                             f"each register is {r.register_bits + CIC_GUARD_BITS} minus its pruned LSBs")
                 lines.append(f"{'':<18}integrator widths {' '.join(map(str, r.integrator_bits))}; "
                              f"comb widths {' '.join(map(str, r.comb_bits))}")
                 lines.append(f"{'':<18}pruned LSBs (integrators, combs, output) {' '.join(map(str, r.pruned_bits))}")

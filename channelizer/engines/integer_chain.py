@@ -32,7 +32,11 @@ Where bits are dropped
   output_bits=<width out>)``; the registers wrap, which a CIC tolerates.  The
   final drop to the stage's output LSB is done here by **round half up** instead
   of truncation (the last comb's register is kept whole and shifted with
-  ``+2**(s-1)``).  Every register is **one bit wider** than Hogenauer's width:
+  ``+2**(s-1)``).  These widths come from
+  :func:`~channelizer.planning.hogenauer.chain_cic`, the rule the plan's
+  ``register_bits`` and ``pruned_bits`` are computed by
+  (:func:`~channelizer.planning.hogenauer.planned_cic`), so without a mixer in front
+  the chain builds exactly the widths the plan states.  Every register is **one bit wider** than Hogenauer's width:
   with pruning, an input held near its most negative value can make the floor
   errors carry the result one LSB below the bottom of the range, where the
   register would wrap to the top (``IntegerCic``'s documented edge case; seen
@@ -76,7 +80,7 @@ from ..dsp.fixedpoint import (
     PhaseAccumulatorNco,
 )
 from ..planning.quantize import QuantizedTaps, quantize_taps
-from ..planning.hogenauer import CicRegisters, _checked_int, cic_registers
+from ..planning.hogenauer import _checked_int, chain_cic, point_bits
 from ..planning.plan import Plan
 from ..planning.response import normalised_response
 from ..planning.stages import CicStage, ResamplerStage, chain_rates
@@ -193,33 +197,6 @@ def _stage_taps(stage, index, bits_override, default_bits):
         return quantize_taps(taps, bits)
     except ChannelizerError as exc:
         raise ChannelizerError(f"{where}: {exc}") from None
-
-
-def _cic_guarded(nominal):
-    """Hogenauer's registers plus one MSB, with the output drop left to the caller.
-
-    Returns the registers for :class:`IntegerCic` and the output shift ``s`` that
-    remains (done by round half up outside).
-    """
-    n2 = 2 * nominal.order
-    d = nominal.discarded
-    last_comb = d[n2 - 1]
-    full = nominal.full_bits + 1
-    discarded = tuple(d[:n2]) + (last_comb,)
-    regs = CicRegisters(
-        order=nominal.order,
-        decimation=nominal.decimation,
-        differential_delay=nominal.differential_delay,
-        input_bits=nominal.input_bits,
-        output_bits=full - last_comb,
-        full_bits=full,
-        gain=nominal.gain,
-        discarded=discarded,
-        widths=tuple(full - b for b in discarded[:-1]),
-        output_shift=last_comb,
-        variance_terms=nominal.variance_terms,
-    )
-    return regs, d[n2] - last_comb
 
 
 def _real(value, name):
@@ -347,15 +324,14 @@ class IntegerChain:
         for i, (st, r_in, r_out) in enumerate(zip(plan.stages, rates[:-1], rates[1:]), start=1):
             name = f"stage{i}_{st.kind}"
             last = i == n_stages
-            w_out = b_out if last else b_out + g
-            head_out = 0 if last else 1
+            w_out, head_out = point_bits(b_out, last=last, extra_bits=g)
             e_target = w_out - 1 - head_out
             head_in = width - 1 - e
             if isinstance(st, CicStage):
-                ob = w_out - head_out + head_in
-                nominal = cic_registers(st.order, st.decimation, st.differential_delay,
-                                        input_bits=width, output_bits=max(ob, 1))
-                regs, shift = _cic_guarded(nominal)
+                # the widths the plan states (hogenauer.planned_cic) come from the same rule
+                built = chain_cic(st.order, st.decimation, st.differential_delay, input_bits=width,
+                                  output_bits=w_out, input_headroom_bits=head_in, output_headroom_bits=head_out)
+                nominal, regs, shift = built.nominal, built.registers, built.round_shift
                 cic = IntegerCic(st.order, st.decimation, st.differential_delay, input_bits=width,
                                  output_bits=regs.output_bits, registers=regs)
                 points.append(_CicPoint(cic, shift, w_out))
@@ -363,11 +339,10 @@ class IntegerChain:
                 b_last = nominal.output_shift
                 e_out = e + c - b_last
                 new_scale = scale * 2.0**b_last / nominal.gain
-                n = st.order
                 rows.append(BitWidthRow(
-                    name, "cic", r_in, r_out, width, w_out, w_out - 1 - e_out, max(regs.widths),
-                    integrator_bits=tuple(regs.widths[:n]), comb_bits=tuple(regs.widths[n:]),
-                    pruned_bits=tuple(nominal.discarded), output_shift=shift,
+                    name, "cic", r_in, r_out, width, w_out, w_out - 1 - e_out, built.widest_bits,
+                    integrator_bits=built.integrator_bits, comb_bits=built.comb_bits,
+                    pruned_bits=tuple(nominal.discarded), register_bits=nominal.full_bits, output_shift=shift,
                     rounding=(f"floor at each integrator and comb (Hogenauer pruning); last comb rounded "
                               f"half up by {shift} bits to the output"),
                     overflow=("registers wrap (harmless in a CIC); one guard bit above Hogenauer's width; "

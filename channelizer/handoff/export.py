@@ -27,7 +27,7 @@ import numpy as np
 
 from ..io.atomic import atomic_output, write_text_atomic
 from ..errors import ChannelizerError
-from ..planning.hogenauer import _checked_int
+from ..planning.hogenauer import CIC_GUARD_BITS, _checked_int
 from ..engines.integer_chain import IntegerChain
 from ..io.names import safe_output_name
 from ..io.run_folder import StagedFolder, folder_entries
@@ -155,8 +155,44 @@ _ROLE_TEXT = {
 }
 
 
-def _c_header(plan, entries):
-    """``coefficients.h``: one ``static const int32_t`` array per coefficient set."""
+def _cic_widths(chain):
+    """``{point: {...}}`` of every CIC's widths as the bit-true chain builds them."""
+    return {
+        r.name: {
+            "register_bits": r.register_bits,
+            "guard_bits": CIC_GUARD_BITS,
+            "pruned_bits": list(r.pruned_bits),
+            "integrator_bits": list(r.integrator_bits),
+            "comb_bits": list(r.comb_bits),
+            "output_shift": r.output_shift,
+        }
+        for r in chain.widths if r.kind == "cic"
+    }
+
+
+def _c_cic(cics):
+    """Macros and arrays of every CIC's register widths, as the bit-true chain builds them."""
+    out = []
+    for name, w in cics.items():
+        macro = safe_output_name(name).upper()
+        n = len(w["integrator_bits"])
+        out += [
+            f"/* {name}: CIC of order {n}. Hogenauer's full width {w['register_bits']} bits plus",
+            f" * {w['guard_bits']} guard bit; register j is {w['register_bits'] + w['guard_bits']} - pruned[j] bits wide",
+            " * (integrators 1..N, then combs); the output drops pruned[2N] LSBs in all. */",
+            f"#define {macro}_ORDER {n}",
+            f"#define {macro}_REGISTER_BITS {w['register_bits']}",
+            f"#define {macro}_GUARD_BITS {w['guard_bits']}",
+            f"static const int32_t {macro.lower()}_pruned[{2 * n + 1}] = {{{', '.join(map(str, w['pruned_bits']))}}};",
+            f"static const int32_t {macro.lower()}_widths[{2 * n}] = "
+            f"{{{', '.join(map(str, w['integrator_bits'] + w['comb_bits']))}}};",
+            "",
+        ]
+    return out
+
+
+def _c_header(plan, entries, cics=None):
+    """``coefficients.h``: one ``static const int32_t`` array per coefficient set, and the CIC widths."""
     out = [
         "/* Integer FIR coefficients of a planned decimation chain.",
         f" * Chain: {format_hz(plan.input_rate, 'sps')} -> {format_hz(plan.output_rate, 'sps')}, "
@@ -188,6 +224,7 @@ def _c_header(plan, entries):
         for k in range(0, len(values), 8):
             out.append("    " + ", ".join(values[k : k + 8]) + ("," if k + 8 < len(values) else ""))
         out += ["};", ""]
+    out += _c_cic(cics or {})
     out.append("#endif /* CHANNELIZER_COEFFICIENTS_H */")
     return "\n".join(out) + "\n"
 
@@ -218,6 +255,8 @@ def _readme(plan, chain, entries, vectors, outputs):
         "    C header (C99, <stdint.h>): one static const int32_t array per FIR, half-band",
         "    and resampler stage, with the stage's rates, width and scale in a comment and as",
         "    macros (_TAPS, _BITS, _FRAC_BITS). Coefficient k = array[k] * 2^-FRAC_BITS.",
+        "    Every CIC's register widths as macros (_ORDER, _REGISTER_BITS, _GUARD_BITS) and",
+        "    arrays (_pruned, _widths); manifest.json holds the same under cic_registers.",
     ]
     for e in entries:
         lines += [
@@ -424,7 +463,8 @@ def export_plan(plan, out_dir, *, coefficient_bits=None, vectors=4096, seed=1):
     for e in entries:
         texts[e["base"] + ".csv"] = _coefficient_csv(e["taps"])
         texts[e["base"] + ".hex"] = _hex_words(e["taps"].integers, e["taps"].bits)
-    texts["coefficients.h"] = _c_header(plan, entries)
+    cics = _cic_widths(chain)
+    texts["coefficients.h"] = _c_header(plan, entries, cics)
     texts["bit_widths.csv"] = chain.widths.to_csv()
     texts["bit_widths.txt"] = chain.widths.format()
     arrays = {}
@@ -439,7 +479,8 @@ def export_plan(plan, out_dir, *, coefficient_bits=None, vectors=4096, seed=1):
         arrays[f"{VECTOR_DIR}/output.txt"] = y
     texts["README.txt"] = _readme(plan, chain, entries, vectors, counts)
     files = tuple(sorted(list(texts) + list(arrays) + [MANIFEST]))
-    manifest = {"format": EXPORT_FORMAT, "plan_identity": plan.identity(), "files": list(files)}
+    manifest = {"format": EXPORT_FORMAT, "plan_identity": plan.identity(), "files": list(files),
+                "cic_registers": cics}
 
     # built in a hidden folder beside out_dir, which it replaces in one rename (io.run_folder)
     with folder.writing() as tmp:

@@ -17,6 +17,7 @@ import math
 
 import numpy as np
 
+from .hogenauer import CIC_GUARD_BITS
 from .stages import CicStage, ResamplerStage, chain_rates
 
 __all__ = ["StageCost", "ChainCost", "chain_cost"]
@@ -112,7 +113,8 @@ def chain_cost(stages, *, fs, objective="cpu", clock=None, input_bits=16, coeffi
             adds = 2 * (st.order * rate + st.order * out_rate)
             regs = st.register_bits or (input_bits + math.ceil(st.order * math.log2(st.decimation * st.differential_delay)))
             pruned = st.pruned_bits[: 2 * st.order] if st.pruned_bits else (0,) * (2 * st.order)
-            reg_bits = 2 * sum(regs - p for p in pruned)
+            # the registers as the bit-true chain builds them: one guard bit each (hogenauer.chain_cic)
+            reg_bits = 2 * sum(regs + CIC_GUARD_BITS - p for p in pruned)
             out.append(StageCost(0.0, 0.0, adds, 0, reg_bits, 0))
             width = regs - (st.pruned_bits[-1] if st.pruned_bits else 0)
             continue

@@ -18,9 +18,15 @@ import numpy as np
 
 from ..errors import ChannelizerError
 
-__all__ = ["CicRegisters", "cic_registers"]
+__all__ = ["CicRegisters", "cic_registers", "ChainCic", "chain_cic", "planned_cic", "point_bits",
+           "CIC_GUARD_BITS", "INTERMEDIATE_EXTRA_BITS"]
 
 MAX_ORDER = 10
+#: Bits a built CIC carries above Hogenauer's width in every register (see ``chain_cic``).
+CIC_GUARD_BITS = 1
+#: Bits the bit-true chain carries beyond the plan's output width between two stages:
+#: one headroom bit above full scale and the rest below the output LSB.
+INTERMEDIATE_EXTRA_BITS = 2
 
 
 @dataclass(frozen=True)
@@ -213,3 +219,136 @@ def cic_registers(order, decimation, differential_delay=1, *, input_bits, output
         output_shift=b_last,
         variance_terms=f2,
     )
+
+
+@dataclass(frozen=True)
+class ChainCic:
+    """A CIC as the bit-true chain builds it: Hogenauer's registers and one guard bit.
+
+    The plan file, ``show``, the bit-true chain and the export all take their CIC
+    widths from this one object (:func:`chain_cic`, :func:`planned_cic`).
+
+    Attributes
+    ----------
+    nominal : CicRegisters
+        Hogenauer's widths and pruning for the widths entering and leaving the CIC.
+        ``nominal.full_bits`` is the plan's ``register_bits`` and
+        ``nominal.discarded`` its ``pruned_bits``.
+    registers : CicRegisters
+        The registers the integer model runs: every one ``CIC_GUARD_BITS`` wider
+        than Hogenauer's, and the result taken whole from the last comb.
+    round_shift : int
+        Bits dropped, rounding half up, from the last comb to the stage output
+        (``nominal.output_shift`` minus the last comb's count).
+    input_bits, output_bits, output_headroom_bits : int
+        The words entering and leaving, and the output bits above full scale.
+    """
+
+    nominal: CicRegisters
+    registers: CicRegisters
+    round_shift: int
+    input_bits: int
+    output_bits: int
+    output_headroom_bits: int
+
+    @property
+    def full_bits(self):
+        """Width of an unpruned register as built: Hogenauer's plus the guard bit."""
+        return self.registers.full_bits
+
+    @property
+    def integrator_bits(self):
+        """Widths of integrators ``1..N`` after pruning."""
+        return self.registers.widths[: self.nominal.order]
+
+    @property
+    def comb_bits(self):
+        """Widths of combs ``N+1..2N`` after pruning."""
+        return self.registers.widths[self.nominal.order :]
+
+    @property
+    def widest_bits(self):
+        """The widest register (the first integrator)."""
+        return max(self.registers.widths)
+
+    def describe(self):
+        """One line: the widths as built, for tables."""
+        return (f"registers {self.widest_bits} down to {min(self.registers.widths)} bits "
+                f"(Hogenauer's {self.nominal.full_bits} + {CIC_GUARD_BITS} guard, pruned)")
+
+
+def point_bits(output_bits, *, last, extra_bits=INTERMEDIATE_EXTRA_BITS):
+    """``(width, headroom bits)`` of the word leaving a stage of the bit-true chain.
+
+    The last stage leaves exactly ``output_bits``; an intermediate one leaves
+    ``output_bits + extra_bits``: one bit of headroom above full scale and
+    ``extra_bits - 1`` fraction bits below the output LSB.
+    """
+    return (output_bits, 0) if last else (output_bits + extra_bits, 1)
+
+
+def chain_cic(order, decimation, differential_delay=1, *, input_bits, output_bits,
+              input_headroom_bits=0, output_headroom_bits=0):
+    """The CIC the bit-true chain builds between two words of the given widths.
+
+    Parameters
+    ----------
+    order, decimation, differential_delay : int
+        ``N``, ``R`` and ``M``.
+    input_bits, output_bits : int
+        Widths of the words entering and leaving.
+    input_headroom_bits, output_headroom_bits : int, optional
+        Bits of each word above full scale.
+
+    Returns
+    -------
+    ChainCic
+
+    Notes
+    -----
+    Hogenauer's rule (:func:`cic_registers`) is applied for an output of
+    ``output_bits - output_headroom_bits + input_headroom_bits`` bits, so that the
+    CIC's full scale lands on the output's.  Every register is then one bit wider
+    (``CIC_GUARD_BITS``): with pruning, an input held at its most negative value
+    can make the floor errors carry the result one LSB below the bottom of
+    Hogenauer's range, where the register would wrap to the top (seen for N = 5,
+    R = 16).  The last comb is kept whole and rounded half up to the output.
+    """
+    ob = output_bits - output_headroom_bits + input_headroom_bits
+    nominal = cic_registers(order, decimation, differential_delay, input_bits=input_bits, output_bits=max(ob, 1))
+    n2 = 2 * nominal.order
+    d = nominal.discarded
+    last_comb = d[n2 - 1]
+    full = nominal.full_bits + CIC_GUARD_BITS
+    discarded = tuple(d[:n2]) + (last_comb,)
+    regs = CicRegisters(
+        order=nominal.order,
+        decimation=nominal.decimation,
+        differential_delay=nominal.differential_delay,
+        input_bits=nominal.input_bits,
+        output_bits=full - last_comb,
+        full_bits=full,
+        gain=nominal.gain,
+        discarded=discarded,
+        widths=tuple(full - b for b in discarded[:-1]),
+        output_shift=last_comb,
+        variance_terms=nominal.variance_terms,
+    )
+    return ChainCic(nominal, regs, d[n2] - last_comb, input_bits, output_bits, output_headroom_bits)
+
+
+def planned_cic(order, decimation, differential_delay=1, *, bits, first=True, last=False):
+    """The CIC of a plan as the bit-true chain builds it without a mixer in front.
+
+    ``bits`` is the spec's ``{'input': ..., 'output': ...}``; ``first`` and ``last``
+    say where the CIC sits.  The first stage takes the input word; a later one the
+    intermediate word of :func:`point_bits`.  (A mixer in front widens the word
+    entering the CIC; the chain then states its own widths.)
+    """
+    if first:
+        w_in, h_in = int(bits["input"]), 0
+    else:
+        w_in, h_in = point_bits(int(bits["output"]), last=False)
+    w_out, h_out = point_bits(int(bits["output"]), last=last)
+    return chain_cic(order, decimation, differential_delay, input_bits=w_in, output_bits=w_out,
+                     input_headroom_bits=h_in, output_headroom_bits=h_out)

@@ -18,7 +18,7 @@ from ..errors import shown
 from ..strict_yaml import safe_load_unique
 from ..errors import ChannelizerError
 from ..units import MAX_HZ, MIN_HZ, format_hz
-from .hogenauer import cic_registers
+from .hogenauer import planned_cic
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates, is_halfband
 
 __all__ = ["Plan", "PlanText", "PLAN_FORMAT", "MAX_PLAN_BYTES", "MAX_COEFFICIENT_BITS", "load_plan_text", "stage_to_dict"]
@@ -120,6 +120,7 @@ class Plan(PlanText):
         raw_stages = data.get("stages")
         if not isinstance(raw_stages, list) or not raw_stages:
             raise ChannelizerError(f"{source}: stages must be a non-empty list")
+        v.n_stages = len(raw_stages)
         stages = tuple(v.stage(s, i) for i, s in enumerate(raw_stages))
         for i, st in enumerate(stages[:-1]):
             if isinstance(st, ResamplerStage):
@@ -256,6 +257,7 @@ class _Validator:
     def __init__(self, source):
         self.source = source
         self.bits = None  # spec.bits, once read (the CIC widths are checked against them)
+        self.n_stages = 0  # how many stages the plan has (a CIC's widths depend on where it sits)
 
     def fail(self, where, what):
         raise ChannelizerError(f"{self.source}: {where}: {what}")
@@ -269,21 +271,24 @@ class _Validator:
                 name = key if isinstance(key, str) and key.isidentifier() else shown(key)
                 self.fail(f"{prefix}{name}", f"unknown key{hint}")
 
-    def hogenauer(self, where, order, dec, m, reg, pruned):
-        """A CIC's stated widths must be Hogenauer's for the spec's input and output bits.
+    def hogenauer(self, where, order, dec, m, reg, pruned, *, first, last):
+        """A CIC's stated widths must be those the bit-true chain builds (``planned_cic``).
 
         The bit-true chain and the export derive the widths they build by the same rule
-        (from the width that actually enters the CIC), so a plan may not state others.
+        (Hogenauer's, from the words entering and leaving the CIC), so a plan may not
+        state others.
         """
-        bits = self.bits
-        regs = cic_registers(order, dec, m, input_bits=bits["input"], output_bits=bits["output"])
-        basis = f"order {order}, decimation {dec}, M {m}, {bits['input']}-bit input"
+        built = planned_cic(order, dec, m, bits=self.bits, first=first, last=last)
+        regs = built.nominal
+        basis = f"order {order}, decimation {dec}, M {m}, {built.input_bits}-bit input"
         if reg != regs.full_bits:
             self.fail(f"{where}.register_bits", f"{reg}, but Hogenauer's width for {basis} is {regs.full_bits}; "
                       f"a plan states the width the chain uses: write {regs.full_bits}")
         if pruned and tuple(pruned) != regs.discarded:
             self.fail(f"{where}.pruned_bits", f"{shown(pruned)} differ from Hogenauer's pruning "
-                      f"{list(regs.discarded)} for {basis}, {bits['output']}-bit output; write those or leave the list out")
+                      f"{list(regs.discarded)} for {basis}, {regs.output_bits}-bit output "
+                      f"({'the chain output' if last else 'the output width plus a fraction bit'}); "
+                      "write those or leave the list out")
 
     def number(self, d, key, where=None):
         where = where or key
@@ -390,7 +395,7 @@ class _Validator:
                 self.fail(f"{where}.pruned_bits", "expected a list of non-negative integers")
             if pruned and len(pruned) != 2 * order + 1:
                 self.fail(f"{where}.pruned_bits", f"expected {2 * order + 1} entries for order {order}, got {len(pruned)}")
-            self.hogenauer(where, order, dec, m, reg, pruned)
+            self.hogenauer(where, order, dec, m, reg, pruned, first=i == 0, last=i == self.n_stages - 1)
             return CicStage(dec, order, m, reg, tuple(pruned))
         if kind in ("fir", "halfband"):
             dec = self.integer(s, "decimation", f"{where}.decimation", lo=1, hi=1 << 20)

@@ -29,7 +29,7 @@ from .design import choose_cic_order, design_compensator, design_decimator, desi
 from .layouts import carrier, describe, has_final, layouts, ripple_shares, stage_estimates
 from ..errors import ChannelizerError
 from ..units import format_hz
-from .hogenauer import cic_registers
+from .hogenauer import planned_cic
 from .limits import check_time, planning_budget
 from .quantize import quantize_taps
 from .plan import Plan
@@ -150,7 +150,8 @@ def _build(layout, spec, resampler, shares, ds_mult, order_add=0):
         if order is None or order + order_add > MAX_CIC_ORDER:
             return None, f"no CIC order up to {MAX_CIC_ORDER} rejects its alias bands enough"
         order += order_add
-        regs = cic_registers(order, r, 1, input_bits=spec.input_bits, output_bits=spec.output_bits)
+        # the widths the bit-true chain builds for a first stage that FIRs follow
+        regs = planned_cic(order, r, 1, bits={"input": spec.input_bits, "output": spec.output_bits}).nominal
         cic = CicStage(r, order, 1, regs.full_bits, tuple(regs.discarded))
         stages.append(cic)
         rate /= r

@@ -3,6 +3,7 @@
 import math
 
 from ..planning.cost import chain_cost
+from ..planning.hogenauer import planned_cic
 from ..planning.response import fold, path_of, resampler_of
 from ..planning.stages import CicStage, ResamplerStage, chain_rates
 from ..units import format_hz
@@ -18,9 +19,12 @@ def _label(st):
     return {"compensator": "compensator", "halfband": "half-band", "channel": "channel FIR"}.get(st.role, st.kind)
 
 
-def _detail(st):
+def _detail(st, bits, index, count):
     if isinstance(st, CicStage):
-        return f"N={st.order} M={st.differential_delay}, {st.register_bits}-bit registers"
+        # the widths the bit-true chain and the export build (one rule: hogenauer.planned_cic)
+        built = planned_cic(st.order, st.decimation, st.differential_delay, bits=bits,
+                            first=index == 0, last=index == count - 1)
+        return f"N={st.order} M={st.differential_delay}, {built.describe()}"
     q = f", {st.coefficient_bits}-bit coefficients" if st.coefficient_bits else ""
     if isinstance(st, ResamplerStage):
         return f"up {st.interpolation}, down {st.decimation}{q}"
@@ -59,7 +63,7 @@ def stage_rows(plan):
                 "ratio": ratio,
                 "rate_in": rates[i],
                 "rate_out": rates[i + 1],
-                "detail": _detail(st),
+                "detail": _detail(st, spec["bits"], i, len(plan.stages)),
                 "mults_per_in": c.multiplies_per_input_sample,
                 "mults_per_s": c.multiplies_per_second,
                 "adds_per_s": c.additions_per_second,
