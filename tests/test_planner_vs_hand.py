@@ -175,11 +175,30 @@ def test_hand_design_meets_its_spec(case):
         assert 20 * np.log10(dc / amp) >= spec.rejection_db - 0.5
 
 
+def hand_engine_cost(stages, fs):
+    """What the float engine computes for the hand design: the CIC as its boxcar-power
+    FIR, N (R - 1) + 1 taps per output (Hogenauer 1981, the CIC's impulse response)."""
+    rates = _stage_rates(stages, fs)
+    cic_part = sum((st[2] * (st[1] - 1) + 1) * rate / fs for st, rate in zip(stages, rates[1:]) if st[0] == "cic")
+    return hand_cost(stages, fs) + cic_part
+
+
 def test_planner_within_hand_design(case):
     name, spec, stages = case
     res = plan_chain(spec)
-    ours = res.chosen.cost.total.multiplies_per_input_sample
-    assert ours <= WITHIN * hand_cost(stages, spec.input_rate), (name, res.chosen.layout, ours)
+    total = res.chosen.cost.total
+    ours = total.fir_multiplies_per_input_sample  # the issue's measure: FIR multiplies, CIC free
+    # the engine's count (CIC as the FIR it runs as) beside it, for the record
+    engine = (total.multiplies_per_input_sample, hand_engine_cost(stages, spec.input_rate))
+    assert ours <= WITHIN * hand_cost(stages, spec.input_rate), (name, res.chosen.layout, ours, engine)
+    # the plan's cpu figure counts the CIC as the engine runs it
+    cics = [s for s in res.plan.stages if s.kind == "cic"]
+    rates = [spec.input_rate]
+    for s in res.plan.stages:
+        rates.append(rates[-1] * s.interpolation / s.decimation)
+    want = ours + sum((s.order * (s.decimation * s.differential_delay - 1) + 1) * rates[i + 1] / spec.input_rate
+                      for i, s in enumerate(res.plan.stages) if s in cics)
+    assert total.multiplies_per_input_sample == pytest.approx(want, rel=1e-12)
 
 
 def test_cic_order_counts_the_compensators_boost():
@@ -229,11 +248,11 @@ def test_non_decimating_compensator_is_short():
 
 def test_default_rate_reports_cheaper_nearby_rates():
     res = plan_chain(ChainSpec(input_rate=61.44e6, bandwidth=200e3))
-    chosen = res.chosen.cost.total.multiplies_per_input_sample
+    chosen = res.chosen.cost.total.fir_multiplies_per_input_sample
     cheaper = [c for c in res.alternatives if "instead of" in c.reason]
     assert cheaper
     for c in cheaper:
-        assert c.cost.total.multiplies_per_input_sample <= 0.8 * chosen
+        assert c.cost.total.fir_multiplies_per_input_sample <= 0.8 * chosen
         # a slightly higher output rate, still an integer divisor of the input rate
         ratio = 61.44e6 / float(c.reason.split("output ")[1].split(" Hz")[0])
         assert abs(ratio - round(ratio)) < 1e-6 and 1.25 * 200e3 <= 61.44e6 / round(ratio)

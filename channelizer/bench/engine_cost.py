@@ -1,12 +1,11 @@
 """What the float engine does per input sample, predicted and measured.
 
-The planner's ``cpu`` objective counts FIR multiplies with the CIC free, as a
-hardware-minded designer would.  The float engine, however, runs a CIC as its
-boxcar-power FIR (``N (R M - 1) + 1`` taps per output, about ``N`` multiplies per
-input sample), a half-band on its ``2K`` non-zero outer taps plus the centre, a
-rational stage one phase (``len(h) / L`` taps) per output, and mixes the channel
-to DC in the first stage (one complex multiply per input).  :func:`engine_multiplies`
-counts exactly that; :func:`compare` times the real runners on the same plans so the
+The float engine runs a CIC as its boxcar-power FIR (``N (R M - 1) + 1`` taps per
+output, about ``N`` multiplies per input sample), a half-band on its ``2K`` non-zero
+outer taps plus the centre, a rational stage one phase (``len(h) / L`` taps) per
+output, and mixes the channel to DC in the first stage.  The planner's ``cpu`` cost
+model counts exactly that (:mod:`channelizer.planning.cost`), and
+:func:`engine_multiplies` adds the mixing; :func:`compare` times the real runners on the same plans so the
 bench can show that the count ranks the plans as the clock does.
 """
 
@@ -18,35 +17,30 @@ import numpy as np
 from ..engines.float_chain import build_chain
 from ..planning.planner import plan_chain
 from ..planning.spec import ChainSpec
-from ..planning.stages import CicStage, FirStage, ResamplerStage, chain_rates, is_halfband
+from ..planning.cost import chain_cost
 
 __all__ = ["engine_multiplies", "compare", "COST_SPECS"]
 
-#: Plans whose engine costs differ enough for a noisy clock to rank them.
+#: Plans whose engine costs differ enough for a noisy clock to rank them: each costs
+#: at least 1.6 times the one before (the CIC plans cluster near N M multiplies per
+#: input sample, so two of them, of different orders, would sit within the noise).
 COST_SPECS = (
-    dict(input_rate=2.4e6, bandwidth=12.5e3, output_rate=48e3),
     dict(input_rate=61.44e6, bandwidth=200e3),
     dict(input_rate=1e6, bandwidth=40e3, output_rate=50e3, rejection_db=100),
-    dict(input_rate=1.024e6, bandwidth=100e3, rejection_db=60, ripple_db=0.5),
-    dict(input_rate=1e6, bandwidth=100e3, output_rate=125e3, rejection_db=100),
+    dict(input_rate=1e6, bandwidth=400e3, output_rate=500e3, rejection_db=100),
+    dict(input_rate=1e6, bandwidth=450e3, output_rate=500e3, rejection_db=100),
+    dict(input_rate=1e6, bandwidth=470e3, output_rate=500e3, rejection_db=110),
 )
 
 
 def engine_multiplies(stages, *, fs):
-    """Complex multiplies per input sample the float runners perform (mixing included)."""
-    rates = chain_rates(stages, fs=fs)
-    total = 1.0  # the first stage mixes every input sample to DC
-    for st, rate_in, rate_out in zip(stages, rates[:-1], rates[1:]):
-        if isinstance(st, CicStage):
-            per_out = st.num_taps
-        elif isinstance(st, ResamplerStage):
-            per_out = len(st.taps) / st.interpolation
-        elif isinstance(st, FirStage) and st.kind == "halfband" and is_halfband(st.taps):
-            per_out = np.count_nonzero(st.taps)
-        else:
-            per_out = len(st.taps)
-        total += per_out * rate_out / fs
-    return total
+    """Complex multiplies per input sample the float runners perform (mixing included).
+
+    The ``cpu`` cost model (:func:`channelizer.planning.cost.chain_cost`), which counts
+    what the engine computes, CIC included, plus one rotation per input sample for the
+    mixing to DC.
+    """
+    return 1.0 + chain_cost(stages, fs=fs, objective="cpu").total.multiplies_per_input_sample
 
 
 def _spearman(a, b):

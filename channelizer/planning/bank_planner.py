@@ -235,19 +235,13 @@ def _design(spec, offsets, M, O, mode):
 def runner_cost(stages, *, fs):
     """Multiplies per input sample as the float runners compute a chain.
 
-    :func:`channelizer.planning.cost.chain_cost` (``cpu``) plus every CIC run as
-    its boxcar-power FIR (``N (R M - 1) + 1`` taps per output), which is how the
-    float engine runs it; the cost model proper counts a CIC as multiplier-free.
+    :func:`channelizer.planning.cost.chain_cost` (``cpu``), which counts every CIC
+    as the boxcar-power FIR (``N (R M - 1) + 1`` taps per output) the float engine
+    runs it as.
     """
     if not stages:
         return 0.0
-    total = chain_cost(stages, fs=fs).total.multiplies_per_input_sample
-    rate = fs
-    for st in stages:
-        if getattr(st, "kind", "") == "cic":
-            total += st.num_taps / st.decimation * rate / fs
-        rate = rate * st.interpolation / st.decimation
-    return total
+    return chain_cost(stages, fs=fs).total.multiplies_per_input_sample
 
 
 def _stage_label(st):
