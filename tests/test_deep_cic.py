@@ -51,6 +51,13 @@ def test_deep_hardware_plan_exports_and_verifies_bit_true(tmp_path):
     # a short tone sweep through the bit-true chain (the full one takes minutes)
     v = verify_plan(plan, bit_true=True, tones=6)
     assert v.meets_spec, (v.measured_ripple_db, v.measured_rejection_db)
+    # the worst alias sits within the planner's 0.5 dB margin of the spec, where the
+    # rounding noise of a 512-sample fit (about 0.4 dB) could decide: it is fitted again
+    # over 8 times the samples, and a least-squares standard error falls as 1/sqrt(N)
+    # (Kay 1993, ch. 8): 10 log10(8) = 9 dB lower, give or take the noise of the noise
+    worst = max((t for t in v.tones if t.band == "alias"), key=lambda t: t.measured_db)
+    passband = sorted(t.floor_db for t in v.tones if t.band == "passband")  # 512-sample fits
+    assert worst.floor_db < passband[len(passband) // 2] - 7.0, (worst, passband)
 
 
 def test_limbs_against_python_integers():
