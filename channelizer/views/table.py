@@ -115,7 +115,9 @@ def format_plan(plan):
             f"from the channel centre (target {spec['rejection_db']:g} dB)"
         )
     lines += [
-        f"Cost  {t.multiplies_per_input_sample:.4f} multiplies per input sample, "
+        f"Cost  {t.multiplies_per_input_sample:.4f} multiplies per input sample"
+        + ("" if hw else f" ({t.fir_multiplies_per_input_sample:.4f} in the FIRs, the CIC left out)")
+        + ", "
         f"{t.multiplies_per_second / 1e6:.3f} M multiplies/s, {t.additions_per_second / 1e6:.3f} M additions/s, "
         f"{t.coefficients} coefficients, {t.register_bits} register bits"
         + (f", {t.multipliers} multiplier{'s' if t.multipliers != 1 else ''} at {format_hz(spec.get('clock') or plan.input_rate)}" if hw else ""),
