@@ -5,8 +5,8 @@ output, about ``N`` multiplies per input sample), a half-band on its ``2K`` non-
 outer taps plus the centre, a rational stage one phase (``len(h) / L`` taps) per
 output, and mixes the channel to DC in the first stage.  The planner's ``cpu`` cost
 model counts exactly that (:mod:`channelizer.planning.cost`), and
-:func:`engine_multiplies` adds the mixing; :func:`compare` times the real runners on the same plans so the
-bench can show that the count ranks the plans as the clock does.
+:func:`engine_multiplies` adds the mixing; :func:`compare` times the real runners on
+the same plans so the bench can show that the count ranks the plans as the clock does.
 """
 
 import math

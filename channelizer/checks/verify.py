@@ -471,7 +471,12 @@ def verify_plan(plan, *, bit_true=False, tones=None, seed=0, fit_samples=None, a
     rows, offsets, on_dc_runs = [], [], []
 
     def measure(f, k, phase, fit):
-        """Run one tone, fit ``fit`` settled outputs: (outputs, landing frequencies, path, amplitudes, error, sep)."""
+        """Run one tone and fit ``fit`` settled outputs.
+
+        Returns the outputs, the distinct landing frequencies, the index into them of
+        each image path, the fitted amplitudes, the fit's standard error, and whether
+        an offset was fitted too.
+        """
         want = settle + fit
         n = int(math.ceil((want + 1) * fs / fs_out)) + 1  # one spare output against rounding of the rates
         y = runner.run(f / fs, n, phase, rng)
