@@ -23,33 +23,13 @@ import pytest
 import channelizer.io.atomic
 import channelizer.io.sigmf_writer
 from channelizer.cli import main
-from channelizer.planning.planner import plan_chain
 from channelizer.io.sigmf_writer import write_sigmf
-from channelizer.planning.spec import ChainSpec
+from conftest import noise as _noise
 
 FS = 2.4e6
 CENTER = 161.0e6
 REPO = Path(__file__).resolve().parent.parent
 ENOSPC = OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
-
-
-@pytest.fixture(scope="module")
-def plan_path(tmp_path_factory):
-    path = tmp_path_factory.mktemp("plan") / "relay.yaml"
-    path.write_text(plan_chain(ChainSpec(input_rate=FS, bandwidth=12.5e3, output_rate=48e3)).plan.to_yaml())
-    return str(path)
-
-
-def _noise(n, seed):
-    rng = np.random.default_rng(seed)
-    return (0.1 * (rng.standard_normal(n) + 1j * rng.standard_normal(n))).astype(np.complex64)
-
-
-@pytest.fixture(scope="module")
-def small_capture(tmp_path_factory):
-    base = tmp_path_factory.mktemp("small") / "site"
-    write_sigmf(base, _noise(60_000, 1), datatype="cf32_le", fs=FS, center_frequency=CENTER)
-    return str(base) + ".sigmf-meta"
 
 
 @pytest.fixture(scope="module")

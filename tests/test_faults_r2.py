@@ -27,7 +27,7 @@ from channelizer.io.atomic import FileSet
 from channelizer.io.run_folder import StagedFolder
 from channelizer.io.sigmf_writer import write_sigmf
 from channelizer.run.output_folder import check_run_folder
-from test_faults import _noise, plan_path, small_capture  # noqa: F401 - fixtures shared with the first round
+from conftest import noise as _noise
 
 FS = 2.4e6
 CENTER = 161.0e6
