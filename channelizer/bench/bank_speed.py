@@ -14,10 +14,18 @@ of noise (complex64, so that no reading or writing is measured), in this process
 Each figure is the best of ``REPEATS`` runs, reported as seconds per second of
 capture and as ratios between the three, which say more than the absolute
 figures on a shared machine.
+
+Memory: the bank runs once more on the same blocks for the first ``N`` and the
+first ``2N`` raster channels (``N`` half the raster) under :mod:`tracemalloc`
+(numpy reports its arrays to it), from before the bank is made to the last
+block; the peak, less the largest block's channel outputs, is the memory the
+bank needs beyond its outputs.  The target is that it does not grow with the
+number of channels (``2N`` over ``N`` near 1).
 """
 
 from dataclasses import asdict, dataclass
 import time
+import tracemalloc
 
 import numpy as np
 
@@ -51,6 +59,8 @@ class BankBenchReport:
     bank_s: float
     per_channel_s: float
     per_channel_measured: int
+    memory_channels: tuple = ()  # (N, 2N)
+    memory_beyond_outputs: tuple = ()  # bytes, for N and 2N channels
 
     def to_dict(self):
         return asdict(self)
@@ -65,6 +75,24 @@ def _best(make, x):
             runner.process(x[i : i + BLOCK])
         best = min(best, time.perf_counter() - t0)
     return best
+
+
+def _memory_beyond_outputs(make, x):
+    """Peak traced bytes while ``make()`` is built and fed ``x``, less the largest block's outputs."""
+    tracemalloc.start()
+    try:
+        tracemalloc.reset_peak()
+        start = tracemalloc.get_traced_memory()[0]
+        runner = make()
+        outputs = 0
+        for i in range(0, x.size, BLOCK):
+            outs = runner.process(x[i : i + BLOCK])
+            outputs = max(outputs, sum(o.nbytes for o in outs))
+            del outs
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    return max(0, peak - start - outputs)
 
 
 def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
@@ -100,13 +128,15 @@ def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
     offsets, residuals = plan.offsets(), plan.residuals()
     centre = min(range(plan.count), key=lambda i: abs(offsets[i]))
     one = _best(lambda: SharedFrontBank([(chain.stages, offsets[centre])], fs=rate), x)
-    bank = _best(
-        lambda: BankChannelizer(
+    def make_bank(count):
+        return lambda: BankChannelizer(
             plan.prototype, plan.bins, plan.oversampling,
-            channels=list(zip(plan.channel_bins, residuals)), fine_stages=plan.stages, fs=rate,
-        ),
-        x,
-    )
+            channels=list(zip(plan.channel_bins, residuals))[:count], fine_stages=plan.stages, fs=rate,
+        )
+
+    bank = _best(make_bank(plan.count), x)
+    half = max(1, plan.count // 2)
+    memory = tuple(_memory_beyond_outputs(make_bank(c), x) for c in (half, 2 * half))
     measured = min(plan.count, PER_CHANNEL_MEASURED)
     step = max(1, plan.count // measured)
     some = [offsets[i] for i in range(0, plan.count, step)][:measured]
@@ -117,6 +147,7 @@ def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
         bank_layout=f"{plan.bins} bins, O={plan.oversampling}, {len(plan.prototype)} taps{tail}",
         chain_layout=result.alternatives[0].layout if result.alternatives else "",
         one_channel_s=one / seconds, bank_s=bank / seconds, per_channel_s=per / seconds, per_channel_measured=measured,
+        memory_channels=(half, 2 * half), memory_beyond_outputs=memory,
     )
 
 
@@ -141,4 +172,11 @@ def format_bank_report(r):
         f"  {'one chain each / bank':<34} {r.per_channel_s / r.bank_s:9.2f} x",
         f"  {'bank speed':<34} {1 / r.bank_s:9.2f} x real time (target >= {TARGET_REAL_TIME:g} x for 200 kHz of 61.44 Msps)",
     ]
+    if r.memory_beyond_outputs:
+        (n1, n2), (m1, m2) = r.memory_channels, r.memory_beyond_outputs
+        lines += [
+            "",
+            f"  {'bank memory beyond the outputs':<34} {m1 / 2**20:9.1f} MiB for {n1} channels, {m2 / 2**20:.1f} MiB for {n2}",
+            f"  {f'{n2} over {n1} channels':<34} {m2 / max(m1, 1):9.2f} x   (target: flat, near 1 x)",
+        ]
     return "\n".join(lines)

@@ -215,8 +215,8 @@ class PolyphaseBank:
                         Y[r0:r1] = Z
                     else:
                         np.take(Z, idx, axis=1, out=Y[r0:r1])
-            y = scipy.fft.ifft(Y, axis=0, overwrite_x=True)
-            np.multiply(y[:S].T, phase, out=out[:, f])
+            y = scipy.fft.ifft(Y.T, axis=1)  # (nk, N): the transform's copy-in transposes
+            np.multiply(y[:, :S], phase, out=out[:, f])
 
         if FFT_WORKERS > 1 and nb > 1:
             list(_pool().map(run, range(nb)))
