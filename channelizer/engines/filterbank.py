@@ -26,6 +26,15 @@ time-reversed window ``u[r] = sum_m h[KM-1-mM-r] x[nD-KM+1+mM+r]``
 ``FFT_M(u)[k] exp(-2j pi k (s + 1) / M)`` on the kept bins (shift theorem).  Cost per input sample:
 ``K O`` real-by-complex multiplies plus one ``M``-point FFT per ``D`` inputs.
 
+For long prototypes (``K O >= FFT_FROM_TAPS``) the branch sums run as
+overlap-save FFT correlations along time, and the ``M``-point DFT is taken in
+the transformed domain by residues ``k = c + O q``: ``O`` transforms of ``D``
+points, of which only the kept bins are transformed back (see
+:meth:`PolyphaseBank._by_fft`).  Per input sample that is about ``N / S`` (frame
+length over new rows, near 1.1) transforms along time, ``O`` products and ``O``
+``D``-point transforms, and ``len(keep) / D`` inverse transforms, whatever ``K``.
+Both paths compute the sums above; only rounding differs.
+
 A channel at offset ``f_c`` from the capture centre takes the bin ``k`` nearest
 to it; its residual ``r = f_c - k fs / M`` is removed at the bin rate
 ``fs_b = fs / D`` by the first of its fine stages, exactly as
