@@ -11,6 +11,7 @@ stopband's numerical floor.
 """
 
 import math
+import weakref
 
 import numpy as np
 
@@ -62,7 +63,7 @@ def _worst_gain_db(stages, lo, hi, *, fs, image):
     return 20 * math.log10(max(float(np.abs(normalised_response(stages, f, fs=fs, image=image)).max()), 1e-300))
 
 
-_SHARED = []  # [(psd, threshold_db, signals, noise density)] of the spectrum last audited against
+_SHARED = []  # [(weak reference to the psd, threshold_db, signals, noise density)] of the spectrum last audited against
 
 
 def _signals(psd, threshold_db):
@@ -72,11 +73,11 @@ def _signals(psd, threshold_db):
     of hundreds through a filter bank): the detection is shared by identity of
     the spectrum object, which the audit only reads.
     """
-    if _SHARED and _SHARED[0][0] is psd and _SHARED[0][1] == threshold_db:
+    if _SHARED and _SHARED[0][0]() is psd and _SHARED[0][1] == threshold_db:
         return _SHARED[0][2], _SHARED[0][3]
     noise = estimate_noise_floor(psd)
     found = detect_signals(psd, threshold_db=threshold_db, noise_floor=noise)
-    _SHARED[:] = [(psd, threshold_db, found, power_db(noise))]
+    _SHARED[:] = [(weakref.ref(psd), threshold_db, found, power_db(noise))]
     return found, _SHARED[0][3]
 
 
