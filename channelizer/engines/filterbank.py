@@ -227,11 +227,15 @@ class PolyphaseBank:
             y = scipy.fft.ifft(Y.T, axis=1)  # (nk, N): the transform's copy-in transposes
             np.multiply(y[:, :S], phase, out=out[:, f])
 
-        if FFT_WORKERS > 1 and nb > 1:
-            list(_pool().map(run, range(nb)))
-        else:
-            for f in range(nb):
+        def frames(f0, f1):
+            for f in range(f0, f1):
                 run(f)
+
+        if FFT_WORKERS > 1 and nb > 1:
+            per = max(1, nb // (4 * FFT_WORKERS))  # a few tasks per thread: balance against overhead
+            list(_pool().map(lambda f0: frames(f0, min(nb, f0 + per)), range(0, nb, per)))
+        else:
+            frames(0, nb)
         return out.reshape(nk, nb * S)[:, :n_new]
 
     def _buffers(self):
