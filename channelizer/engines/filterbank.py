@@ -26,7 +26,7 @@ time-reversed window ``u[r] = sum_m h[KM-1-mM-r] x[nD-KM+1+mM+r]``
 ``FFT_M(u)[k] exp(-2j pi k (s + 1) / M)`` on the kept bins (shift theorem).  Cost per input sample:
 ``K O`` real-by-complex multiplies plus one ``M``-point FFT per ``D`` inputs.
 
-For long prototypes (``K O >= FFT_FROM_TAPS``) the branch sums run as
+For long prototypes (:func:`channelizer.planning.bank.bank_method`) the branch sums run as
 overlap-save FFT correlations along time, and the ``M``-point DFT is taken in
 the transformed domain by residues ``k = c + O q``: ``O`` transforms of ``D``
 points, of which only the kept bins are transformed back (see
@@ -61,6 +61,7 @@ import numpy as np
 import scipy.fft
 
 from ..errors import ChannelizerError
+from ..planning.bank import bank_method, fft_frame, kept_bins
 from .float_chain import build_chain
 from .streaming import _EMPTY, _as_block, _check_factor, _check_taps
 
@@ -68,9 +69,6 @@ __all__ = ["PolyphaseBank", "BankChannelizer"]
 
 #: Threads for the FFTs (rows are independent; the targets count 2 cores).
 FFT_WORKERS = 2
-#: Branch filters by FFT correlation from this many taps per input sample (``K O``) on;
-#: below it the element-wise passes are quicker.
-FFT_FROM_TAPS = 12
 #: Complex values per pass over a frame's rows on the FFT path (a pass stays in cache).
 CHUNK = 1 << 16
 
@@ -90,8 +88,8 @@ class PolyphaseBank:
         Bins whose outputs are returned (all by default).
     method : {'auto', 'fft', 'direct'}
         How the branch filters run: overlap-save FFT correlation, or ``K``
-        element-wise passes; ``'auto'`` takes FFT from ``FFT_FROM_TAPS`` taps per
-        input sample on.  Both compute the same sums.
+        element-wise passes; ``'auto'`` chooses as
+        :func:`channelizer.planning.bank.bank_method` does.  Both compute the same sums.
 
     Examples
     --------
@@ -130,10 +128,10 @@ class PolyphaseBank:
         # (short prototypes, or on request: see _branches)
         if method not in ("auto", "fft", "direct"):
             raise ChannelizerError(f"method: expected 'auto', 'fft' or 'direct', got {method!r}")
-        self.method = method if method != "auto" else "fft" if self.K * O >= FFT_FROM_TAPS else "direct"
+        self.method = method if method != "auto" else bank_method(self.K, O, M)
         if self.method == "fft":
-            self._N, self._G = _residue_spectra(hr, O, self.decimation)
-            self._S = (self._N - self.K * O + 1) // O * O  # new rows per frame
+            self._N, self._S = fft_frame(self.K, O)  # frame length, new rows per frame
+            self._G = _residue_spectra(hr, O, self.decimation, self._N)
             self._chunk = max(8, CHUNK // M)  # rows of a frame per pass (a pass stays in cache)
             self._local = threading.local()
             # kept bin k = c + Oq sits at c D + q of the residues' transforms
@@ -314,11 +312,10 @@ def _pool():
     return _POOL[0]
 
 
-def _residue_spectra(hr, O, D):
-    """FFT length ``N`` and ``G[f, c, b]`` of :meth:`PolyphaseBank._by_fft`, laid out ``(N, O, D)``."""
+def _residue_spectra(hr, O, D, N):
+    """``G[f, c, b]`` of :meth:`PolyphaseBank._by_fft` for frames of ``N`` rows, laid out ``(N, O, D)``."""
     K, M = hr.shape
     L = K * O
-    N = max(64, 1 << int(np.ceil(np.log2(8 * L))))
     c = np.zeros((N, O, D), np.float64)  # c[l, a, b] = c_{aD+b}[l]
     for a in range(O):
         c[a : L : O, a, :] = hr[:, a * D : (a + 1) * D]
@@ -326,7 +323,7 @@ def _residue_spectra(hr, O, D):
     r = np.arange(O)
     G = np.einsum("lab,ca->lcb", C, np.exp(-2j * np.pi * np.outer(r, r) / O))
     G *= np.exp(-2j * np.pi * np.outer(r, np.arange(D)) / M)
-    return N, G.astype(np.complex64)
+    return G.astype(np.complex64)
 
 
 class BankChannelizer:
@@ -356,7 +353,7 @@ class BankChannelizer:
         if not channels:
             raise ChannelizerError("channels: a bank needs at least one channel")
         used = sorted({int(b) for b, _ in channels})
-        if 2 * len(used) >= bins:  # most bins in use: no gather of the kept ones
+        if kept_bins(len(used), bins) == bins:  # most bins in use: no gather of the kept ones
             used = list(range(bins))
         self.bank = PolyphaseBank(prototype, bins, oversampling, keep=None if len(used) == bins else used)
         col = {b: i for i, b in enumerate(used)}
