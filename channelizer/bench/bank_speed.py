@@ -19,8 +19,9 @@ too: on a machine whose other core is busy, it is the work the bank does.
 Memory: the bank runs once more on the same blocks for the first ``N`` and the
 first ``2N`` raster channels (``N`` half the raster) under :mod:`tracemalloc`
 (numpy reports its arrays to it), from before the bank is made to the last
-block, its work in one thread; the peak, less the largest block's channel
-outputs, is the memory the bank needs beyond its outputs.  The target is that it does not grow with the
+block, its work in one thread; the larger of the peak while the bank is made
+and the peak of each block less that block's channel outputs is the memory the
+bank needs beyond its outputs.  The target is that it does not grow with the
 number of channels (``2N`` over ``N`` near 1).
 """
 
@@ -85,7 +86,7 @@ def _best(make, x, cpu=None):
 
 
 def _memory_beyond_outputs(make, x):
-    """Peak traced bytes while ``make()`` is built and fed ``x``, less the largest block's outputs.
+    """Peak traced bytes while ``make()`` is built, and while it is fed each block of ``x`` less that block's outputs.
 
     The bank's work runs in this thread here, so that the figure is the same from run
     to run; each worker thread of a timed run adds its own work arrays (a fixed size).
@@ -97,16 +98,17 @@ def _memory_beyond_outputs(make, x):
         tracemalloc.reset_peak()
         start = tracemalloc.get_traced_memory()[0]
         runner = make()
-        outputs = 0
+        worst = tracemalloc.get_traced_memory()[1] - start  # making the bank
         for i in range(0, x.size, BLOCK):
+            tracemalloc.reset_peak()
             outs = runner.process(x[i : i + BLOCK])
-            outputs = max(outputs, sum(o.nbytes for o in outs))
+            outputs = sum(o.nbytes for o in outs)
+            worst = max(worst, tracemalloc.get_traced_memory()[1] - start - outputs)
             del outs
-        peak = tracemalloc.get_traced_memory()[1]
     finally:
         tracemalloc.stop()
         filterbank.FFT_WORKERS = workers
-    return max(0, peak - start - outputs)
+    return max(0, worst)
 
 
 def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):

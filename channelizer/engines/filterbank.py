@@ -313,17 +313,25 @@ def _pool():
 
 
 def _residue_spectra(hr, O, D, N):
-    """``G[f, c, b]`` of :meth:`PolyphaseBank._by_fft` for frames of ``N`` rows, laid out ``(N, O, D)``."""
+    """``G[f, c, b]`` of :meth:`PolyphaseBank._by_fft` for frames of ``N`` rows, laid out ``(N, O, D)``.
+
+    Built one residue at a time, so that the temporaries stay near the size of ``G``.
+    """
     K, M = hr.shape
     L = K * O
-    c = np.zeros((N, O, D), np.float64)  # c[l, a, b] = c_{aD+b}[l]
+    C = np.empty((O, N, D), np.complex64)  # C[a] = conj(FFT_N(c_{aD+b})), c_{aD+b}[mO + a] = hr[m, aD+b]
     for a in range(O):
-        c[a : L : O, a, :] = hr[:, a * D : (a + 1) * D]
-    C = np.conj(np.fft.fft(c, axis=0))
-    r = np.arange(O)
-    G = np.einsum("lab,ca->lcb", C, np.exp(-2j * np.pi * np.outer(r, r) / O))
-    G *= np.exp(-2j * np.pi * np.outer(r, np.arange(D)) / M)
-    return G.astype(np.complex64)
+        c = np.zeros((N, D))
+        c[a:L:O] = hr[:, a * D : (a + 1) * D]
+        C[a] = np.conj(np.fft.fft(c, axis=0))
+    G = np.empty((N, O, D), np.complex64)
+    for r in range(O):
+        acc = np.zeros((N, D), complex)
+        for a in range(O):
+            acc += C[a] * np.exp(-2j * np.pi * r * a / O)
+        acc *= np.exp(-2j * np.pi * r * np.arange(D) / M)
+        G[:, r] = acc
+    return G
 
 
 class BankChannelizer:
