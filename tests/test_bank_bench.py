@@ -13,6 +13,10 @@ def test_bank_benchmark_reports_the_three_paths():
     assert r.one_channel_s > 0 and r.bank_s > 0 and r.per_channel_s > 0
     text = format_bank_report(r)
     assert "bank / one channel" in text and "x real time" in text
+    # memory beyond the outputs, for half the raster and twice that (11 and 22 channels)
+    assert r.memory_channels == (11, 22)
+    assert all(m > 0 for m in r.memory_beyond_outputs)
+    assert "memory beyond the outputs" in text
 
 
 def test_bench_command_with_spacing_writes_json(tmp_path, capsys):

@@ -146,3 +146,36 @@ def test_extract_command_writes_the_raster(bank, capture, tmp_path, capsys):
     out = capsys.readouterr().out
     assert "5 channel(s), filter-bank path" in out
     assert sorted(p.name for p in (tmp_path / "cli").glob("*.sigmf-meta")) == [f"ch-{161_100_000 + 12_500 * i}.sigmf-meta" for i in range(5)]
+
+
+def test_audit_of_each_channel_reads_the_prototype_at_the_tone(bank, capture, tmp_path):
+    # the tone at +125 kHz lies in an alias band (j x 12.5 kHz +- 5 kHz) of each other raster
+    # channel: the audit shares one detection over the channels and must still give each its
+    # own attenuation, which is the path's response there: the product of each stage's
+    # scipy.signal.freqz at its own rate (a decimating cascade keeps the input frequency;
+    # common practice).  The audit states the worst gain over the tone's bins, so it lies
+    # between the gain at the tone and the largest gain within +-1 kHz of it.
+    path, plan = bank
+    meta, _ = capture
+    result = run_bank_extraction(open_capture(meta), plan, str(tmp_path / "audit"), plan_source=path, plots=False)
+
+    def gain(f):
+        g, rate = np.abs(scipy.signal.freqz(plan.prototype, worN=f, fs=FS)[1]), FS / plan.decimation
+        for st in plan.stages:
+            taps = st.taps() if callable(st.taps) else st.taps
+            g = g * np.abs(scipy.signal.freqz(taps, worN=np.mod(f, rate), fs=rate)[1])
+            rate /= st.decimation
+        return g
+
+    dc = gain(np.array([0.0]))[0]
+    checked = 0
+    for ch, off in zip(result.channels, plan.offsets()):
+        if abs(off - TONE) < 1.0:
+            continue
+        entry = [e for e in ch.alias_audit if abs(e["signal_center_hz"] - (CENTER + TONE)) < 500]
+        assert len(entry) == 1, ch.name
+        u = TONE - off
+        att = -20 * np.log10(gain(np.linspace(u - 1e3, u + 1e3, 401)) / dc)
+        assert att.min() - 0.5 <= entry[0]["attenuation_db"] <= att[200] + 0.5, ch.name
+        checked += 1
+    assert checked == 4

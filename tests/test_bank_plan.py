@@ -113,3 +113,29 @@ def test_one_channel_is_cheaper_as_a_chain():
     assert isinstance(result.plan, Plan)
     assert "chosen" in result.chosen.reason
     assert any("chosen against" in c.reason for c in result.alternatives)
+
+
+def test_bank_cost_counts_the_engine_s_fft_path():
+    # written from the description of bank_multiplies: frames of N = 256 rows (the power
+    # of two from 8 K O = 216), S = 230 new rows; per input sample (N / S) (log2 N + 2 O
+    # + O log2 D + kept log2 N / D) + 2 kept / D, an n-point FFT counted as n log2 n
+    # multiplies (Crochiere & Rabiner 1983, ch. 7, for the DFT count; from memory)
+    from channelizer.planning.bank import bank_multiplies
+
+    M, O, K, kept = 192, 1, 27, 5
+    D = M // O
+    expect = 256 / 230 * (8 + 2 * O + O * np.log2(D) + kept * 8 / D) + 2 * kept / D
+    assert bank_multiplies(K, M, O, kept) == pytest.approx(expect, rel=1e-12)
+    # short prototypes on few bins run by element-wise passes: K O + M log2 M / D + phase
+    assert bank_multiplies(3, 16, 2, 16) == pytest.approx(6 + 16 * 4 / 8 + 2 * 16 / 8, rel=1e-12)
+    # the FFT path's count hardly grows with the prototype: twice K adds under a fifth
+    assert bank_multiplies(2 * K, M, O, M) < 1.2 * bank_multiplies(K, M, O, M)
+    # the planner costs the bank so: five channels of the raster, bins 0..4 of 192 kept
+    result = plan_bank(BankSpec(input_rate=FS, bandwidth=10e3, spacing=12.5e3, first=0.0, last=50e3))
+    plan = result.plan
+    assert isinstance(plan, BankPlan) and (plan.bins, plan.oversampling) == (M, O)
+    K = len(plan.prototype) // M
+    N = 1 << int(np.ceil(np.log2(8 * K * O)))
+    S = N - K * O + 1
+    want = N / S * (np.log2(N) + 2 * O + O * np.log2(D) + 5 * np.log2(N) / D) + 2 * 5 / D
+    assert plan.predicted["bank_multiplies_per_input_sample"] == pytest.approx(want, abs=1e-5)

@@ -118,3 +118,27 @@ def test_kept_bins_equal_the_same_bins_of_the_whole_bank(rng, M, O, K):
     for method in ("fft", "direct"):
         part = np.concatenate(feed(PolyphaseBank(h, M, O, keep=keep, method=method), x, [700, 5]))
         np.testing.assert_allclose(part, whole[:, keep], rtol=0, atol=1e-5)
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_residue_passes_in_pieces_equal_mix_and_upfirdn(rng, monkeypatch, workers):
+    # the FFT path takes the M-point DFT as O transforms of M/O points over a few rows
+    # of a frame at a time; forced here into passes of 8 rows, with kept bins in every
+    # residue class (M = 24, O = 6: bin k in class k mod 6), in one or two threads;
+    # reference: mixing plus scipy.signal.upfirdn (Crochiere & Rabiner 1983, ch. 7)
+    from channelizer.engines import filterbank
+
+    monkeypatch.setattr(filterbank, "CHUNK", 8 * 24)
+    monkeypatch.setattr(filterbank, "FFT_WORKERS", workers)
+    M, O, K = 24, 6, 5
+    h = scipy.signal.firwin(K * M, 1.0 / M)
+    x = noise(rng, 9000)
+    keep = [23, 0, 5, 7, 10, 13, 20]
+    bank = PolyphaseBank(h, M, O, keep=keep, method="fft")
+    assert bank._N > bank._chunk  # several passes per frame
+    y = np.concatenate(feed(bank, x.astype(np.complex64), [4000, 3, 4997]))
+    D = M // O
+    assert y.shape == (x.size // D, len(keep))
+    for i, k in enumerate(keep):
+        ref = bin_reference(h, x, k, M, D)
+        assert np.max(np.abs(y[:, i] - ref)) < 1e-5 * np.max(np.abs(ref))

@@ -13,14 +13,25 @@ of noise (complex64, so that no reading or writing is measured), in this process
 
 Each figure is the best of ``REPEATS`` runs, reported as seconds per second of
 capture and as ratios between the three, which say more than the absolute
-figures on a shared machine.
+figures on a shared machine.  The bank's CPU time over all its threads is given
+too: on a machine whose other core is busy, it is the work the bank does.
+
+Memory: the bank runs once more on the same blocks for the first ``N`` and the
+first ``2N`` raster channels (``N`` half the raster) under :mod:`tracemalloc`
+(numpy reports its arrays to it), from before the bank is made to the last
+block, its work in one thread; the larger of the peak while the bank is made
+and the peak of each block less that block's channel outputs is the memory the
+bank needs beyond its outputs.  The target is that it does not grow with the
+number of channels (``2N`` over ``N`` near 1).
 """
 
 from dataclasses import asdict, dataclass
 import time
+import tracemalloc
 
 import numpy as np
 
+from ..engines import filterbank
 from ..engines.filterbank import BankChannelizer
 from ..engines.float_chain import SharedFrontBank
 from ..errors import ChannelizerError
@@ -51,20 +62,53 @@ class BankBenchReport:
     bank_s: float
     per_channel_s: float
     per_channel_measured: int
+    bank_cpu_s: float = 0.0  # process CPU time (all threads) per second of capture
+    memory_channels: tuple = ()  # (N, 2N)
+    memory_beyond_outputs: tuple = ()  # bytes, for N and 2N channels
 
     def to_dict(self):
         return asdict(self)
 
 
-def _best(make, x):
-    best = float("inf")
+def _best(make, x, cpu=None):
+    """Best wall time of ``REPEATS`` runs; ``cpu`` (a list) receives the least process CPU time."""
+    best, least = float("inf"), float("inf")
     for _ in range(REPEATS):
         runner = make()
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         for i in range(0, x.size, BLOCK):
             runner.process(x[i : i + BLOCK])
         best = min(best, time.perf_counter() - t0)
+        least = min(least, time.process_time() - c0)
+    if cpu is not None:
+        cpu.append(least)
     return best
+
+
+def _memory_beyond_outputs(make, x):
+    """Peak traced bytes while ``make()`` is built, and while it is fed each block of ``x`` less that block's outputs.
+
+    The bank's work runs in this thread here, so that the figure is the same from run
+    to run; each worker thread of a timed run adds its own work arrays (a fixed size).
+    """
+    workers = filterbank.FFT_WORKERS
+    filterbank.FFT_WORKERS = 1
+    tracemalloc.start()
+    try:
+        tracemalloc.reset_peak()
+        start = tracemalloc.get_traced_memory()[0]
+        runner = make()
+        worst = tracemalloc.get_traced_memory()[1] - start  # making the bank
+        for i in range(0, x.size, BLOCK):
+            tracemalloc.reset_peak()
+            outs = runner.process(x[i : i + BLOCK])
+            outputs = sum(o.nbytes for o in outs)
+            worst = max(worst, tracemalloc.get_traced_memory()[1] - start - outputs)
+            del outs
+    finally:
+        tracemalloc.stop()
+        filterbank.FFT_WORKERS = workers
+    return max(0, worst)
 
 
 def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
@@ -100,13 +144,16 @@ def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
     offsets, residuals = plan.offsets(), plan.residuals()
     centre = min(range(plan.count), key=lambda i: abs(offsets[i]))
     one = _best(lambda: SharedFrontBank([(chain.stages, offsets[centre])], fs=rate), x)
-    bank = _best(
-        lambda: BankChannelizer(
+    def make_bank(count):
+        return lambda: BankChannelizer(
             plan.prototype, plan.bins, plan.oversampling,
-            channels=list(zip(plan.channel_bins, residuals)), fine_stages=plan.stages, fs=rate,
-        ),
-        x,
-    )
+            channels=list(zip(plan.channel_bins, residuals))[:count], fine_stages=plan.stages, fs=rate,
+        )
+
+    cpu = []
+    bank = _best(make_bank(plan.count), x, cpu)
+    half = max(1, plan.count // 2)
+    memory = tuple(_memory_beyond_outputs(make_bank(c), x) for c in (half, 2 * half))
     measured = min(plan.count, PER_CHANNEL_MEASURED)
     step = max(1, plan.count // measured)
     some = [offsets[i] for i in range(0, plan.count, step)][:measured]
@@ -117,6 +164,7 @@ def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
         bank_layout=f"{plan.bins} bins, O={plan.oversampling}, {len(plan.prototype)} taps{tail}",
         chain_layout=result.alternatives[0].layout if result.alternatives else "",
         one_channel_s=one / seconds, bank_s=bank / seconds, per_channel_s=per / seconds, per_channel_measured=measured,
+        bank_cpu_s=cpu[0] / seconds, memory_channels=(half, 2 * half), memory_beyond_outputs=memory,
     )
 
 
@@ -134,6 +182,7 @@ def format_bank_report(r):
         "",
         _row("one channel (chain)", r.one_channel_s),
         _row(f"all {r.channels} channels, bank", r.bank_s),
+        _row("  CPU time over its threads", r.bank_cpu_s),
         _row(f"all {r.channels} channels, one chain each", r.per_channel_s)
         + (f"  (timed on {r.per_channel_measured}, scaled)" if r.per_channel_measured < r.channels else ""),
         "",
@@ -141,4 +190,11 @@ def format_bank_report(r):
         f"  {'one chain each / bank':<34} {r.per_channel_s / r.bank_s:9.2f} x",
         f"  {'bank speed':<34} {1 / r.bank_s:9.2f} x real time (target >= {TARGET_REAL_TIME:g} x for 200 kHz of 61.44 Msps)",
     ]
+    if r.memory_beyond_outputs:
+        (n1, n2), (m1, m2) = r.memory_channels, r.memory_beyond_outputs
+        lines += [
+            "",
+            f"  {'bank memory beyond the outputs':<34} {m1 / 2**20:9.1f} MiB for {n1} channels, {m2 / 2**20:.1f} MiB for {n2}",
+            f"  {f'{n2} over {n1} channels':<34} {m2 / max(m1, 1):9.2f} x   (target: flat, near 1 x)",
+        ]
     return "\n".join(lines)

@@ -11,6 +11,7 @@ stopband's numerical floor.
 """
 
 import math
+import weakref
 
 import numpy as np
 
@@ -62,6 +63,24 @@ def _worst_gain_db(stages, lo, hi, *, fs, image):
     return 20 * math.log10(max(float(np.abs(normalised_response(stages, f, fs=fs, image=image)).max()), 1e-300))
 
 
+_SHARED = []  # [(weak reference to the psd, threshold_db, signals, noise density)] of the spectrum last audited against
+
+
+def _signals(psd, threshold_db):
+    """The signals of ``psd`` and its noise density (dB), found once per spectrum.
+
+    Every channel of a run is audited against the same input spectrum (a raster
+    of hundreds through a filter bank): the detection is shared by identity of
+    the spectrum object, which the audit only reads.
+    """
+    if _SHARED and _SHARED[0][0]() is psd and _SHARED[0][1] == threshold_db:
+        return _SHARED[0][2], _SHARED[0][3]
+    noise = estimate_noise_floor(psd)
+    found = detect_signals(psd, threshold_db=threshold_db, noise_floor=noise)
+    _SHARED[:] = [(weakref.ref(psd), threshold_db, found, power_db(noise))]
+    return found, _SHARED[0][3]
+
+
 def audit_channel(psd, req, result=None, *, threshold_db=10.0):
     """Alias audit of one channel.
 
@@ -86,12 +105,14 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
     fs = plan.input_rate
     fp = plan.bandwidth / 2
     chan_centre = psd.center_frequency + req.offset
-    noise_out = power_db(estimate_noise_floor(psd))
+    signals, noise_out = _signals(psd, threshold_db)
     intervals = alias_intervals(plan.stages, fs=fs, bandwidth=plan.bandwidth)
+    starts = np.array([a for a, _, _ in intervals], dtype=float)
+    ends = np.array([b for _, b, _ in intervals], dtype=float)
     step = image_step(plan.stages, fs=fs)
     bin_hz = psd.bin_hz
     out = []
-    for sig in detect_signals(psd, threshold_db=threshold_db):
+    for sig in signals:
         lo, hi = sig.lower_hz - chan_centre, sig.upper_hz - chan_centre
         # mixing folds input frequencies into [-fs/2, fs/2)
         if lo >= -fp and hi <= fp:
@@ -101,7 +122,9 @@ def audit_channel(psd, req, result=None, *, threshold_db=10.0):
         dens = psd.psd[sel]
         total = 0.0
         worst_att, land, path = math.inf, 0.0, 0
-        for a, b, k in intervals:
+        # only the bands that reach the signal's span (a bank's channel has hundreds)
+        near = np.flatnonzero((ends >= x.min()) & (starts <= x.max())) if x.size else ()
+        for a, b, k in (intervals[i] for i in near):
             m = (x >= a) & (x <= b)
             if not np.any(m):
                 continue

@@ -26,6 +26,15 @@ time-reversed window ``u[r] = sum_m h[KM-1-mM-r] x[nD-KM+1+mM+r]``
 ``FFT_M(u)[k] exp(-2j pi k (s + 1) / M)`` on the kept bins (shift theorem).  Cost per input sample:
 ``K O`` real-by-complex multiplies plus one ``M``-point FFT per ``D`` inputs.
 
+For long prototypes (:func:`channelizer.planning.bank.bank_method`) the branch sums run as
+overlap-save FFT correlations along time, and the ``M``-point DFT is taken in
+the transformed domain by residues ``k = c + O q``: ``O`` transforms of ``D``
+points, of which only the kept bins are transformed back (see
+:meth:`PolyphaseBank._by_fft`).  Per input sample that is about ``N / S`` (frame
+length over new rows, near 1.1) transforms along time, ``O`` products and ``O``
+``D``-point transforms, and ``len(keep) / D`` inverse transforms, whatever ``K``.
+Both paths compute the sums above; only rounding differs.
+
 A channel at offset ``f_c`` from the capture centre takes the bin ``k`` nearest
 to it; its residual ``r = f_c - k fs / M`` is removed at the bin rate
 ``fs_b = fs / D`` by the first of its fine stages, exactly as
@@ -46,10 +55,13 @@ polyphase filter banks for wireless communications", IEEE Trans. MTT
 51(4):1395-1412, 2003 (the circular shift of the oversampled form; from memory).
 """
 
+import threading
+
 import numpy as np
 import scipy.fft
 
 from ..errors import ChannelizerError
+from ..planning.bank import bank_method, fft_frame, kept_bins
 from .float_chain import build_chain
 from .streaming import _EMPTY, _as_block, _check_factor, _check_taps
 
@@ -57,11 +69,8 @@ __all__ = ["PolyphaseBank", "BankChannelizer"]
 
 #: Threads for the FFTs (rows are independent; the targets count 2 cores).
 FFT_WORKERS = 2
-#: Branch filters by FFT correlation from this many taps per input sample (``K O``) on;
-#: below it the element-wise passes are quicker.
-FFT_FROM_TAPS = 12
-#: Complex values per piece of frames on the FFT path (a piece stays in cache).
-PIECE = 1 << 17
+#: Complex values per pass over a frame's rows on the FFT path (a pass stays in cache).
+CHUNK = 1 << 16
 
 
 class PolyphaseBank:
@@ -79,8 +88,8 @@ class PolyphaseBank:
         Bins whose outputs are returned (all by default).
     method : {'auto', 'fft', 'direct'}
         How the branch filters run: overlap-save FFT correlation, or ``K``
-        element-wise passes; ``'auto'`` takes FFT from ``FFT_FROM_TAPS`` taps per
-        input sample on.  Both compute the same sums.
+        element-wise passes; ``'auto'`` chooses as
+        :func:`channelizer.planning.bank.bank_method` does.  Both compute the same sums.
 
     Examples
     --------
@@ -119,10 +128,14 @@ class PolyphaseBank:
         # (short prototypes, or on request: see _branches)
         if method not in ("auto", "fft", "direct"):
             raise ChannelizerError(f"method: expected 'auto', 'fft' or 'direct', got {method!r}")
-        self.method = method if method != "auto" else "fft" if self.K * O >= FFT_FROM_TAPS else "direct"
+        self.method = method if method != "auto" else bank_method(self.K, O, M)
         if self.method == "fft":
-            self._N, self._Cf = _correlation_spectra(hr, O, self.decimation)
-            self._S = (self._N - self.K * O + 1) // O * O  # new rows per frame
+            self._N, self._S = fft_frame(self.K, O)  # frame length, new rows per frame
+            self._G = _residue_spectra(hr, O, self.decimation, self._N)
+            self._chunk = max(8, CHUNK // M)  # rows of a frame per pass (a pass stays in cache)
+            self._local = threading.local()
+            # kept bin k = c + Oq sits at c D + q of the residues' transforms
+            self._idx = None if self.keep is None and O == 1 else (k % O) * self.decimation + k // O
         else:
             self._h2 = np.repeat(hr, 2, axis=1)
             self._rows = max(16, 32768 // M)  # rows per pass: the pass stays in cache
@@ -160,46 +173,82 @@ class PolyphaseBank:
             out[..., d0 : d0 + count] = y[..., first : first + (count - 1) * step + 1 : step]
         return out
 
-    def _by_fft(self, buf, n_new, first_c):
+    def _by_fft(self, hist, x, n_new, first_c):
         """The kept bins' outputs ``(len(keep), n_new)``, shift phase included, by
-        overlap-save correlation.
+        overlap-save correlation; ``X[i, b] = buf[iD + b]``, ``buf`` the history
+        then the block ``x`` (zero past it).
 
-        With ``t = aD + b`` and ``X[i, b] = buf[iD + b]``,
-        ``u[n, t] = sum_l c_t[l] X[n + l, b]``, ``c_t[mO + a] = hr[m, t]`` (``l < KO``):
-        frames of ``N`` rows of ``X`` (``S <= N - KO + 1`` apart, ``S`` a multiple of
-        ``O``) are transformed along time, multiplied by ``conj(FFT_N(c_t))`` for every
-        ``t``, given the ``M``-point FFT over ``t`` (it commutes with the transform
-        along time) and, for the kept bins only, transformed back; the first ``S``
-        rows of each frame are exact (no circular wrap).  Frames run in
-        ``FFT_WORKERS`` threads (numpy and the FFT release the GIL).
+        With ``t = aD + b``, ``u[n, t] = sum_l c_t[l] X[n + l, b]``,
+        ``c_t[mO + a] = hr[m, t]`` (``l < KO``): frames of ``N`` rows of ``X``
+        (``S <= N - KO + 1`` apart, ``S`` a multiple of ``O``) are transformed
+        along time to ``F[f, b]`` and the ``M``-point DFT over ``t`` (it commutes
+        with the transform along time) is taken by residues: for ``k = c + Oq``,
+        ``W_M^{kt} = W_O^{ca} W_M^{cb} W_D^{qb}`` (``W_P = exp(-2j pi / P)``), so
+        ``Y[f, c + Oq] = FFT_D(F[f, :] G[f, c, :])[q]`` with
+        ``G[f, c, b] = W_M^{cb} sum_a conj(FFT_N(c_{aD+b}))[f] W_O^{ca}``:
+        ``O`` transforms of ``D`` points instead of one of ``M``.  The kept bins
+        are transformed back along time; the first ``S`` rows of each frame are
+        exact (no circular wrap).  Frames run in ``FFT_WORKERS`` threads (numpy
+        and the FFT release the GIL).
         """
-        D, O, N, M = self.decimation, self.oversampling, self._N, self.bins
-        S = self._S
+        D, O, N, M, S = self.decimation, self.oversampling, self._N, self.bins, self._S
         nb = -(-n_new // S)
-        rows = min(buf.size // D, (nb - 1) * S + N)
-        X = np.zeros(((nb - 1) * S + N, D), np.complex64)  # every frame lies inside X
-        X[:rows] = buf[: rows * D].reshape(rows, D)
-        s0, s1 = X.strides
-        frames = np.lib.stride_tricks.as_strided(X, shape=(nb, N, D), strides=(S * s0, s0, s1), writeable=False)
+        hs = hist.size
         nk = M if self.keep is None else self.keep.size
         out = np.empty((nk, nb, S), np.complex64)
-        phase = self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
+        phase = self._phase[(first_c + np.arange(S)) % O].T  # (nk, S)
+        G, idx, rows = self._G, self._idx, self._chunk
 
-        def run(f0, f1):
-            F = scipy.fft.fft(frames[f0:f1], axis=1)  # (frames, N, D)
-            U = (F[:, :, None, :] * self._Cf).reshape(f1 - f0, N, M)
-            Y = self._take_kept(scipy.fft.fft(U, axis=2, overwrite_x=True))
-            y = scipy.fft.ifft(Y, axis=1, overwrite_x=True)[:, :S]
-            np.multiply(y.transpose(2, 0, 1), phase, out=out[:, f0:f1])
+        def run(f):
+            frame, Y, P = self._buffers()  # this thread's work arrays: transforms run in place
+            # the frame's rows X[fS : fS + N], copied from the history and the block
+            flat, a = frame.reshape(-1), f * S * D
+            h = min(max(hs - a, 0), flat.size)
+            flat[:h] = hist[a : a + h]
+            b0 = max(a - hs, 0)
+            n_x = min(max(x.size - b0, 0), flat.size - h)
+            flat[h : h + n_x] = x[b0 : b0 + n_x]
+            flat[h + n_x :] = 0
+            F = scipy.fft.fft(frame, axis=0, overwrite_x=True)  # (N, D)
+            if P is None:  # one residue, every bin: no gather
+                Y = scipy.fft.fft(np.multiply(F, G[:, 0], out=F), axis=1, overwrite_x=True)
+            else:
+                for r0 in range(0, N, rows):
+                    r1 = min(N, r0 + rows)
+                    p = P[: r1 - r0]
+                    np.multiply(F[r0:r1, None, :], G[r0:r1], out=p)
+                    Z = scipy.fft.fft(p, axis=2, overwrite_x=True).reshape(r1 - r0, M)
+                    if idx is None:
+                        Y[r0:r1] = Z
+                    else:
+                        np.take(Z, idx, axis=1, out=Y[r0:r1])
+            y = scipy.fft.ifft(Y.T, axis=1)  # (nk, N): the transform's copy-in transposes
+            np.multiply(y[:, :S], phase, out=out[:, f])
 
-        per = max(1, PIECE // (N * M))  # frames per piece: a piece stays in cache
-        pieces = [(f, min(nb, f + per)) for f in range(0, nb, per)]
-        if FFT_WORKERS > 1 and len(pieces) > 1:
-            list(_pool().map(lambda r: run(*r), pieces))
+        def frames(f0, f1):
+            for f in range(f0, f1):
+                run(f)
+
+        if FFT_WORKERS > 1 and nb > 1:
+            per = max(1, nb // (4 * FFT_WORKERS))  # a few tasks per thread: balance against overhead
+            list(_pool().map(lambda f0: frames(f0, min(nb, f0 + per)), range(0, nb, per)))
         else:
-            for r in pieces:
-                run(*r)
+            frames(0, nb)
         return out.reshape(nk, nb * S)[:, :n_new]
+
+    def _buffers(self):
+        """The calling thread's work arrays ``(frame, Y, P)`` for :meth:`_by_fft` (made on first use)."""
+        w = self._local.__dict__.get("arrays")
+        if w is None:
+            N, D, O, M = self._N, self.decimation, self.oversampling, self.bins
+            frame = np.empty((N, D), np.complex64)
+            if self._idx is None and self._chunk >= N and O == 1:
+                w = (frame, None, None)
+            else:
+                nk = M if self.keep is None else self.keep.size
+                w = (frame, np.empty((N, nk), np.complex64), np.empty((min(self._chunk, N), O, D), np.complex64))
+            self._local.arrays = w
+        return w
 
     def process(self, block):
         """Feed the next block; returns ``(n_new, len(keep))`` complex64 bin outputs."""
@@ -212,24 +261,28 @@ class PolyphaseBank:
         total = self.n_in + x.size
         m_end = total // D
         n_new = m_end - self.n_out
-        buf = np.concatenate((self._hist, x))
         self.n_in = total
+        hist = self._hist
         if n_new <= 0:
-            self._hist = buf
+            self._hist = np.concatenate((hist, x))
             return np.zeros((M if self.keep is None else self.keep.size, 0), np.complex64)
         # the circular shift roll(u, s + 1), s = nD mod M, is applied after the FFT as
         # the phase exp(-2j pi k (s + 1) / M) on the kept bins only (shift theorem)
         first_c = self.n_out % O
+        hs = hist.size
         if self.method == "fft":
-            out = self._by_fft(buf, n_new, first_c)
+            out = self._by_fft(hist, x, n_new, first_c)
         else:
+            buf = np.concatenate((hist, x))
             u = self._branches(buf, n_new)  # a fresh array: the FFT may overwrite it
             y = scipy.fft.fft(u, axis=1, overwrite_x=True, workers=FFT_WORKERS)
             out = np.empty((M if self.keep is None else self.keep.size, n_new), np.complex64)
             out[:] = self._take_kept(y).T
             for c in range(O):  # outputs n with n % O == c: rows i = (c - n_out) mod O, step O
                 out[:, (c - first_c) % O :: O] *= self._phase[c][:, None]
-        self._hist = buf[n_new * D :].copy()
+        # the samples from output n_new on: what is left of the history, then the block
+        cut = n_new * D
+        self._hist = x[cut - hs :].copy() if cut >= hs else np.concatenate((hist[cut:], x))
         self.n_out = m_end
         return out
 
@@ -259,15 +312,26 @@ def _pool():
     return _POOL[0]
 
 
-def _correlation_spectra(hr, O, D):
-    """FFT length ``N`` and ``conj(FFT_N(c_t))`` laid out ``(N, O, D)`` (see ``_branches_fft``)."""
+def _residue_spectra(hr, O, D, N):
+    """``G[f, c, b]`` of :meth:`PolyphaseBank._by_fft` for frames of ``N`` rows, laid out ``(N, O, D)``.
+
+    Built one residue at a time, so that the temporaries stay near the size of ``G``.
+    """
     K, M = hr.shape
     L = K * O
-    N = max(64, 1 << int(np.ceil(np.log2(8 * L))))
-    c = np.zeros((N, O, D), np.float64)  # c[l, a, b] = c_{aD+b}[l]
+    C = np.empty((O, N, D), np.complex64)  # C[a] = conj(FFT_N(c_{aD+b})), c_{aD+b}[mO + a] = hr[m, aD+b]
     for a in range(O):
-        c[a : L : O, a, :] = hr[:, a * D : (a + 1) * D]
-    return N, np.conj(np.fft.fft(c, axis=0)).astype(np.complex64)
+        c = np.zeros((N, D))
+        c[a:L:O] = hr[:, a * D : (a + 1) * D]
+        C[a] = np.conj(np.fft.fft(c, axis=0))
+    G = np.empty((N, O, D), np.complex64)
+    for r in range(O):
+        acc = np.zeros((N, D), complex)
+        for a in range(O):
+            acc += C[a] * np.exp(-2j * np.pi * r * a / O)
+        acc *= np.exp(-2j * np.pi * r * np.arange(D) / M)
+        G[:, r] = acc
+    return G
 
 
 class BankChannelizer:
@@ -297,7 +361,7 @@ class BankChannelizer:
         if not channels:
             raise ChannelizerError("channels: a bank needs at least one channel")
         used = sorted({int(b) for b, _ in channels})
-        if 2 * len(used) >= bins:  # most bins in use: no gather of the kept ones
+        if kept_bins(len(used), bins) == bins:  # most bins in use: no gather of the kept ones
             used = list(range(bins))
         self.bank = PolyphaseBank(prototype, bins, oversampling, keep=None if len(used) == bins else used)
         col = {b: i for i, b in enumerate(used)}

@@ -19,10 +19,63 @@ from .bank_response import prototype_magnitude
 from .plan import Plan, PlanText, _Validator, _kind, _plain, stage_to_dict
 from .stages import FirStage, ResamplerStage, chain_rates
 
-__all__ = ["BankPlan", "BankFrontStage", "BANK_FORMAT", "is_bank_data"]
+__all__ = ["BankPlan", "BankFrontStage", "BANK_FORMAT", "is_bank_data", "bank_method", "fft_frame", "kept_bins",
+           "bank_multiplies"]
 
 BANK_FORMAT = "channelizer-bank/1"
 MAX_CHANNELS = 100_000
+
+#: The bank runs its branch filters by FFT correlation from this many taps per input
+#: sample (``K O``) on; below it by element-wise passes, which are quicker there ...
+FFT_FROM_TAPS = 12
+#: ... except from ``FFT_WIDE_TAPS`` taps on with at least ``FFT_WIDE_BINS`` bins, where
+#: the frames are large enough for the transforms to pay (timed on 2 cores: 192 bins,
+#: ``O = 2``, ``K = 5`` run a quarter quicker by FFT; 64 bins or fewer run slower).
+FFT_WIDE_TAPS = 8
+FFT_WIDE_BINS = 128
+
+
+def bank_method(K, O, M):
+    """How the bank engine runs ``K`` taps per branch, ``O``, ``M`` bins: ``'fft'`` or ``'direct'``."""
+    taps = K * O
+    return "fft" if taps >= FFT_FROM_TAPS or (taps >= FFT_WIDE_TAPS and M >= FFT_WIDE_BINS) else "direct"
+
+
+def fft_frame(K, O):
+    """``(N, S)``: the FFT path's frame length along time and new rows per frame.
+
+    ``N`` is a power of two of at least 8 ``K O`` (and 64); ``S`` the largest
+    multiple of ``O`` up to ``N - K O + 1`` (overlap-save keeps the rows free of wrap).
+    """
+    L = K * O
+    N = max(64, 1 << int(math.ceil(math.log2(8 * L))))
+    return N, (N - L + 1) // O * O
+
+
+def kept_bins(used, M):
+    """Bins the engine computes for ``used`` distinct channel bins: all ``M`` once half are used."""
+    return M if 2 * used >= M else used
+
+
+def bank_multiplies(K, M, O, kept):
+    """Multiplies per input sample of the bank as the engine runs it (its fine stages apart).
+
+    Direct path: ``K O`` for the branches plus ``M log2 M / D`` for one ``M``-point
+    FFT per output (its ``(M/2) log2 M`` complex products counted as two
+    coefficient-by-sample multiplies each; Crochiere & Rabiner 1983, ch. 7).
+    FFT path (:mod:`channelizer.engines.filterbank`), per frame of ``S`` new rows of
+    ``D = M / O`` inputs, counted alike (an ``n``-point FFT as ``n log2 n``):
+    ``D`` transforms of ``N`` points along time, ``N O D`` complex products, ``N O``
+    transforms of ``D`` points and ``kept`` inverse transforms of ``N`` points, i.e.
+    ``(N / S) (log2 N + 2 O + O log2 D + kept log2 N / D)``, whatever ``K``.  Both
+    add the shift phase, a complex product per kept output: ``2 kept / D``.
+    """
+    D = M // O
+    phase = 2.0 * kept / D
+    if bank_method(K, O, M) == "direct":
+        return K * O + M * math.log2(M) / D + phase
+    N, S = fft_frame(K, O)
+    return N / S * (math.log2(N) + 2 * O + O * math.log2(D) + kept * math.log2(N) / D) + phase
 
 
 def is_bank_data(data):

@@ -19,10 +19,11 @@ cheapest design meeting ripple, alias and adjacent-channel rejection is then
 compared with planning one chain per channel for the same request, both
 costed as the float runners compute them (:func:`runner_cost`).
 
-Cost per input sample of a bank (Crochiere & Rabiner 1983, ch. 7; the working
-sheet's formula): ``(K M + M log2 M) / D`` multiplies (an ``M``-point FFT's
-``(M/2) log2 M`` complex-by-complex products counted as two
-coefficient-by-sample multiplies each) plus every channel's fine stages.
+Cost per input sample of a bank: the multiplies of the bank as the engine runs
+it (:func:`channelizer.planning.bank.bank_multiplies`: ``K O + M log2 M / D`` by
+element-wise passes, Crochiere & Rabiner 1983, ch. 7; by FFT correlation, for
+long prototypes, transforms whose count hardly depends on ``K``) plus every
+channel's fine stages.
 """
 
 from dataclasses import dataclass, field
@@ -32,7 +33,7 @@ import numpy as np
 import scipy.signal
 
 from ..errors import ChannelizerError
-from .bank import BankPlan
+from .bank import BankPlan, bank_multiplies, kept_bins
 from .bank_response import predict_bank
 from .cost import chain_cost
 from .planner import MIN_OVERSAMPLING, Candidate, plan_chain
@@ -217,7 +218,7 @@ def _design(spec, offsets, M, O, mode):
     K = len(h) // M
     fine_cost = runner_cost(stages, fs=fs_b) * fs_b / fs
     nco = (fs_b / fs) if any(abs(r) > 1e-9 for r in res) else 0.0
-    bank_cost = (K * M + M * math.log2(M)) / (M // O)
+    bank_cost = bank_multiplies(K, M, O, kept_bins(len(set(bins)), M))
     cost = bank_cost + len(offsets) * (fine_cost + nco)
     tail = " > ".join(_stage_label(st) for st in stages)
     layout = f"bank M={M} O={O} K={K}" + (f" > {tail}" if tail else "")
