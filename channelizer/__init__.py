@@ -7,9 +7,17 @@ implementation detail that may change.  Names load on first use, so that
 
 import importlib
 import os
+import sys
 
 # One BLAS thread (see channelizer/cli.py); set before numpy is first imported.
+_BLAS_PRESET = os.environ.get("OPENBLAS_NUM_THREADS")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+if _BLAS_PRESET is None and "numpy" in sys.modules:
+    # numpy came first: OpenBLAS chose its thread count before the setting above, so the
+    # engines must not assume one thread (channelizer/engines/streaming.py).  Processes
+    # started from here inherit the mark and cut their products the same way, so a
+    # distributed run still equals this process's bit for bit.
+    os.environ["CHANNELIZER_BLAS_THREADS"] = "several"
 
 __version__ = "0.1.0"
 

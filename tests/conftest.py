@@ -2,13 +2,14 @@
 
 import os
 
-import numpy as np
 import pytest
 
 # The same single BLAS thread as the command line (see channelizer/cli.py): the
 # streaming stages' many small matrix products slow down badly under OpenBLAS's
 # own threads on a busy 2-core machine.
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import numpy as np  # noqa: E402 - after the BLAS setting above
 
 
 # Fixtures the fault tests share (tests/test_faults.py, tests/test_faults_r2.py).

@@ -12,6 +12,7 @@ must equal (same counts, bit for bit).
 import json
 import math
 import os
+import subprocess
 import sys
 
 import numpy as np
@@ -24,7 +25,7 @@ from channelizer.io.sigmf_writer import write_sigmf
 from channelizer.planning.planner import plan_chain
 from channelizer.planning.spec import ChainSpec
 from channelizer.planning.stages import CicStage, FirStage, ResamplerStage
-from channelizer.run.chunks import aligned_block_size, chain_memory, chain_period, chunk_layout
+from channelizer.run.chunks import aligned_block_size, balanced_chunk_blocks, chain_memory, chain_period, chunk_layout
 from channelizer.run.distributed import INSTALL_HINT, run_on_client
 from channelizer.run.processor import ChannelRequest, extract_channels
 
@@ -32,6 +33,39 @@ FS = 2.4e6
 CENTRE = 145.0e6
 N = 600_000  # 0.25 s
 BLOCK = 50 * 1024  # a multiple of the chains' periods below (50 and 150)
+
+
+def _list_schedule_span(total, c, workers):
+    """Finish time, in blocks, of chunks of ``c`` blocks (each but the first with a one-block
+    pre-roll) handed in order to whichever worker is free first: Graham's list scheduling
+    (R. L. Graham, "Bounds on multiprocessing timing anomalies", SIAM J. Appl. Math. 17(2), 1969),
+    simulated here independently of the formula under test."""
+    free = [0] * workers
+    for k, start in enumerate(range(0, total, c)):
+        w = free.index(min(free))
+        free[w] += min(c, total - start) + (1 if k else 0)
+    return max(free)
+
+
+@pytest.mark.parametrize("total,workers", [(235, 2), (59, 2), (235, 3), (1000, 8), (17, 4), (3, 2)])
+def test_balanced_chunks_finish_with_the_best_chunk_length(total, workers):
+    c = balanced_chunk_blocks(total, workers=workers, max_blocks=64)
+    assert 1 <= c <= 64
+    best = min(_list_schedule_span(total, k, workers) for k in range(1, 65))
+    # within one chunk's pre-roll of the best any length up to 64 gives, and never worse than
+    # the fixed 16-block chunks used before
+    assert _list_schedule_span(total, c, workers) <= best + 1
+    assert _list_schedule_span(total, c, workers) <= _list_schedule_span(total, 16, workers)
+
+
+def test_balanced_chunks_on_the_bench_capture():
+    # 4 s of 61.44 Msps in blocks of 2**20 samples is 235 blocks (common practice: ceil(245.76e6 / 2**20))
+    blocks = math.ceil(4 * 61.44e6 / 2**20)
+    assert blocks == 235
+    # two workers: 4 chunks of 59 blocks (two each) instead of 15 chunks of 16 (8 on one worker)
+    assert balanced_chunk_blocks(blocks, workers=2, max_blocks=64) == 59
+    with pytest.raises(ChannelizerError, match="workers"):
+        balanced_chunk_blocks(blocks, workers=0)
 
 
 def test_chain_period_follows_each_stage_grid():
@@ -264,3 +298,39 @@ def test_bench_workers_figures(scene, tmp_path):
     assert got["workers"] == 2 and got["identical"]
     assert got["speedup"] == pytest.approx(min(got["one_process_runs_s"]) / min(got["workers_runs_s"]), rel=1e-2, abs=1e-3)
     assert got["chunks"] >= 1 and 0 <= got["overlap_cost"] < 1
+
+
+_BLAS_PROBE = """
+import ctypes, glob, json, os, sys
+first = sys.argv[1]
+if first == "numpy":
+    import numpy
+import channelizer
+from channelizer.engines import streaming
+import numpy as np
+libs = glob.glob(os.path.join(os.path.dirname(np.__file__), "..", "numpy.libs", "*openblas*"))
+threads = None
+for lib in libs:
+    dll = ctypes.CDLL(lib)
+    for name in ("scipy_openblas_get_num_threads64_", "openblas_get_num_threads64_", "openblas_get_num_threads"):
+        if hasattr(dll, name):
+            threads = getattr(dll, name)()
+print(json.dumps({"one_thread": streaming._BLAS_ONE_THREAD, "threads": threads}))
+"""
+
+
+@pytest.mark.parametrize("first", ["channelizer", "numpy"])
+def test_engines_know_whether_blas_runs_on_one_thread(first):
+    # The block products are cut by whether OpenBLAS runs on one thread, and a distributed
+    # run equals one process only when both cut them alike.  OpenBLAS reads
+    # OPENBLAS_NUM_THREADS once, when numpy loads it (OpenBLAS documentation, from memory):
+    # imported after numpy, channelizer's setting comes too late and must not be trusted.
+    env = {k: v for k, v in os.environ.items() if k not in ("OPENBLAS_NUM_THREADS", "CHANNELIZER_BLAS_THREADS")}
+    env["PYTHONPATH"] = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    run = subprocess.run([sys.executable, "-c", _BLAS_PROBE, first], capture_output=True, text=True, env=env,
+                         timeout=120)
+    assert run.returncode == 0, run.stderr
+    got = json.loads(run.stdout.strip().splitlines()[-1])
+    if got["threads"] is not None and got["one_thread"]:
+        assert got["threads"] == 1  # OpenBLAS's own count, where numpy's build exposes it
+    assert got["one_thread"] == (first == "channelizer")

@@ -31,8 +31,8 @@ def _samples(folder, names):
 
 def time_workers(capture_path, requests, work_dir, *, workers, repeats=3):
     """Best times of one process and of ``workers`` dask workers on the same job; a dict."""
-    from ..run.chunks import aligned_block_size, chunk_layout
-    from ..run.distributed import CHUNK_BLOCKS, check_cluster_options, cluster_client, run_on_client
+    from ..run.chunks import aligned_block_size, balanced_chunk_blocks, chunk_layout
+    from ..run.distributed import CHUNK_BLOCKS, check_cluster_options, cluster_client, run_on_client, worker_slots
 
     check_cluster_options(workers=workers)
     one_dir, many_dir = os.path.join(work_dir, "one-process"), os.path.join(work_dir, "workers")
@@ -44,6 +44,7 @@ def time_workers(capture_path, requests, work_dir, *, workers, repeats=3):
     t0 = time.perf_counter()
     with cluster_client(workers=workers) as client:
         started = time.perf_counter() - t0
+        slots = worker_slots(client)
 
         def runner(one, *a, **k):
             run_on_client(client, one, *a, **k)
@@ -57,7 +58,8 @@ def time_workers(capture_path, requests, work_dir, *, workers, repeats=3):
     chains = [r.plan.stages for r in requests]
     cap = open_capture(capture_path)
     block = aligned_block_size(chains, 1 << 20)
-    layout = chunk_layout(chains, cap.num_samples, chunk_samples=CHUNK_BLOCKS * block, block_size=block)
+    per_chunk = balanced_chunk_blocks(-(-cap.num_samples // block), workers=slots, max_blocks=CHUNK_BLOCKS)
+    layout = chunk_layout(chains, cap.num_samples, chunk_samples=per_chunk * block, block_size=block)
     return {
         "workers": workers,
         "channels": len(requests),

@@ -157,7 +157,11 @@ class _Rotator:
 # calls by up to a factor of 300 in our measurements, so every product is cut into
 # pieces that stay single-threaded.  With the OpenBLAS 0.3.31 that numpy 2.4 ships,
 # complex products ran on one thread for m n k < 65536 and on two from 65536 on.
-_BLAS_SINGLE_THREAD_MNK = 65535 if os.environ.get("OPENBLAS_NUM_THREADS") != "1" else 1 << 22
+# OpenBLAS is on one thread only when OPENBLAS_NUM_THREADS=1 was set before numpy loaded it
+# (channelizer/__init__.py marks the case where numpy came first).
+_BLAS_ONE_THREAD = (os.environ.get("OPENBLAS_NUM_THREADS") == "1"
+                    and os.environ.get("CHANNELIZER_BLAS_THREADS") != "several")
+_BLAS_SINGLE_THREAD_MNK = 1 << 22 if _BLAS_ONE_THREAD else 65535
 _DIRECT_BLOCK = 16384  # blocks up to this many samples are copied into one buffer
 
 

@@ -26,7 +26,8 @@ import math
 from ..errors import ChannelizerError
 from ..planning.stages import CicStage, ResamplerStage
 
-__all__ = ["ChunkLayout", "aligned_block_size", "chain_memory", "chain_period", "chunk_layout", "output_ratio"]
+__all__ = ["ChunkLayout", "aligned_block_size", "balanced_chunk_blocks", "chain_memory", "chain_period", "chunk_layout",
+           "output_ratio"]
 
 
 def _stage_period(st):
@@ -144,3 +145,33 @@ def chunk_layout(chains, total, *, chunk_samples, block_size=None):
     size = -(-chunk_samples // unit) * unit
     chunks = tuple((s, min(total, s + size)) for s in range(0, max(total, 1), size))
     return ChunkLayout(period=period, preroll=preroll, chunks=chunks, on_block_grid=bool(grid))
+
+
+def balanced_chunk_blocks(total_blocks, *, workers, max_blocks=64):
+    """Blocks per chunk that finish a capture of ``total_blocks`` soonest on ``workers``.
+
+    Every chunk but the first also runs a pre-roll of one block (see
+    :func:`chunk_layout`), and chunks go to the workers in rounds, so with ``c``
+    blocks per chunk the busiest worker runs about ``ceil(ceil(B / c) / W)``
+    chunks of ``c + 1`` blocks.  The smallest ``c`` up to ``max_blocks`` that
+    minimises that span is returned: fewer, longer chunks spend less on
+    pre-rolls, and a chunk count that is a multiple of the workers keeps them
+    all busy to the end.  ``max_blocks`` keeps chunks short enough that a
+    retried chunk or a slow worker costs little.
+
+    Examples
+    --------
+    235 blocks on 2 workers: 16-block chunks make 15 chunks, 8 on one worker
+    (136 blocks with pre-rolls); 59-block chunks make 4, two on each (120).
+    """
+    for name, v in (("total_blocks", total_blocks), ("workers", workers), ("max_blocks", max_blocks)):
+        if isinstance(v, bool) or not isinstance(v, int) or v < (0 if name == "total_blocks" else 1):
+            raise ChannelizerError(f"{name} must be a whole number{' >= 1' if name != 'total_blocks' else ''}, got {v!r}")
+    if total_blocks <= 1:
+        return 1
+
+    def span(c):
+        chunks = -(-total_blocks // c)
+        return -(-chunks // workers) * (c + 1)
+
+    return min(range(1, min(max_blocks, total_blocks) + 1), key=lambda c: (span(c), c))

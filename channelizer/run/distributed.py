@@ -24,17 +24,20 @@ from ..errors import ChannelizerError
 from ..io.progress import ProgressBar
 from ..planning.stages import CicStage
 from .chunk_pass import ChunkJob, portable_capture, run_chunk
-from .chunks import chunk_layout
+from .chunks import balanced_chunk_blocks, chunk_layout
 
-__all__ = ["INSTALL_HINT", "CHUNK_BLOCKS", "check_cluster_options", "cluster_client", "distributed_runner", "run_on_client"]
+__all__ = ["INSTALL_HINT", "CHUNK_BLOCKS", "check_cluster_options", "cluster_client", "distributed_runner", "run_on_client",
+           "worker_slots"]
 
 INSTALL_HINT = (
     "--workers and --scheduler need dask.distributed, an optional extra: "
     "pip install 'channelizer[cluster]' (or pip install 'dask[distributed]')"
 )
-#: Blocks of the single pass per chunk (16 Mi samples, 0.27 s of 61.44 Msps, in blocks of 1 Mi):
-#: the pre-roll is one block, so the overlap costs 1/16 of the work.
-CHUNK_BLOCKS = 16
+#: Most blocks of the single pass per chunk (64 Mi samples, about 1.1 s of 61.44 Msps, in blocks
+#: of 1 Mi): within it the chunk length is chosen for the cluster's worker count
+#: (:func:`channelizer.run.chunks.balanced_chunk_blocks`).  The pre-roll is one block, so a chunk
+#: of ``c`` blocks costs ``1 / c`` more work.
+CHUNK_BLOCKS = 64
 #: More tries for a task that raises (a worker that dies is handled by dask itself).
 RETRIES = 2
 
@@ -124,7 +127,11 @@ def run_on_client(client, one, out_dir, files, *, output_format, nonfinite, prog
     ``task`` is the function each chunk runs (:func:`run_chunk`; a test may wrap it).
     """
     cap = one.capture
-    chunk = CHUNK_BLOCKS * one.block_size if chunk_samples is None else chunk_samples
+    if chunk_samples is None:
+        blocks = -(-cap.num_samples // one.block_size)
+        chunk = one.block_size * balanced_chunk_blocks(blocks, workers=worker_slots(client), max_blocks=CHUNK_BLOCKS)
+    else:
+        chunk = chunk_samples
     layout = chunk_layout([r.plan.stages for r in one.requests], cap.num_samples, chunk_samples=chunk,
                           block_size=one.block_size)
     shipped = portable_capture(cap)
@@ -160,6 +167,14 @@ def run_on_client(client, one, out_dir, files, *, output_format, nonfinite, prog
         for fut in futures:
             if fut is not None:
                 fut.cancel()
+
+
+def worker_slots(client):
+    """Tasks the cluster runs at once: the sum of its workers' threads (at least 1)."""
+    try:
+        return max(1, sum(client.nthreads().values()))
+    except Exception:  # a client that cannot say (a test's stand-in): one at a time
+        return 1
 
 
 def _result(fut, k, chunks):
