@@ -33,7 +33,7 @@ from .hogenauer import cic_registers
 from .limits import check_time, planning_budget
 from .quantize import quantize_taps
 from .plan import Plan
-from .response import fold, predict
+from .response import fold, path_of, predict
 from .spec import ChainSpec, ripple_to_delta
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates
 
@@ -65,6 +65,10 @@ PRUNE = 1.3
 #: Points per alias band while searching (the chosen chain is checked with the default).
 SEARCH_POINTS = 8
 SEARCH_REFINE = 401
+#: A stage short of rejection is tightened by the shortfall and this margin (dB) in
+#: the search, and by the smaller one when a chain is designed again at full resolution.
+SEARCH_MARGIN_DB = 1.0
+FULL_MARGIN_DB = 0.2
 
 
 @dataclass
@@ -78,6 +82,10 @@ class Candidate:
     cost: object = None
     reason: str = ""
     meets: bool = False
+    #: (layout, resampler, estimates) it was designed from, and whether its search
+    #: judged it on the full-resolution prediction
+    design: tuple = field(default=(), repr=False)
+    full: bool = field(default=False, repr=False)
 
 
 @dataclass
@@ -293,6 +301,8 @@ def _culprits(stages, x, spec):
     fs, ds = spec.input_rate, spec.stopband_delta
     rates = chain_rates(stages, fs=fs)
     out = set()
+    if path_of(stages, x, fs=fs, bandwidth=spec.bandwidth) > 0:
+        return {"res"}  # an image of the rational stage: only its filter rejects it
     if isinstance(stages[0], CicStage):
         g = fold(np.array([x]), rates[-1])
         ratio = abs(stages[0].response(np.array([x]), fs=fs)[0]) / max(abs(stages[0].response(g, fs=fs)[0]), 1e-300)
@@ -306,8 +316,14 @@ def _culprits(stages, x, spec):
     return out or {_role(st) for st in stages if not isinstance(st, CicStage)}
 
 
-def _design_candidate(cand, layout, resampler, est, spec):
-    """Design one layout, raising only what fails; fills ``cand`` in."""
+def _design_candidate(cand, layout, resampler, est, spec, *, full=False):
+    """Design one layout, raising only what fails; fills ``cand`` in.
+
+    Each try is judged on the coarse prediction of the search, or with ``full`` on
+    the full one the chosen chain is checked with.
+    """
+    sampling = {} if full else {"points_per_band": SEARCH_POINTS, "refine_points": SEARCH_REFINE}
+    margin = FULL_MARGIN_DB if full else SEARCH_MARGIN_DB
     fs = spec.input_rate
     dp, ds = spec.passband_delta, spec.stopband_delta
     shares = ripple_shares(est, dp, ds)
@@ -317,8 +333,7 @@ def _design_candidate(cand, layout, resampler, est, spec):
         stages, reason = _build(layout, spec, resampler, shares, ds_mult, order_add)
         if stages is None:
             break
-        pred = predict(stages, fs=fs, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge,
-                       points_per_band=SEARCH_POINTS, refine_points=SEARCH_REFINE)
+        pred = predict(stages, fs=fs, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge, **sampling)
         reason = _shortfall(pred, spec)
         if not reason:
             break
@@ -332,11 +347,11 @@ def _design_candidate(cand, layout, resampler, est, spec):
                 if role == "cic":
                     order_add += 1
                 else:
-                    ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + 1.0) / 20)
+                    ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + margin) / 20)
         if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < need:
             short = need - pred.adjacent_rejection_db
             role = _role(stages[-1])
-            ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + 1.0) / 20)
+            ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + margin) / 20)
     cand.stages = stages or ()
     if stages:
         cand.prediction = pred
@@ -346,6 +361,7 @@ def _design_candidate(cand, layout, resampler, est, spec):
         )
     cand.reason = reason
     cand.meets = bool(stages) and not reason
+    cand.design, cand.full = (layout, resampler, est), full
     return cand
 
 
@@ -473,9 +489,16 @@ def plan_chain(spec):
     # the search sampled each alias band coarsely: the chosen chain is checked in full
     while True:
         best = good[0]
-        best.prediction = predict(best.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
-                                  stopband_edge=spec.stopband_edge)
-        best.reason = _shortfall(best.prediction, spec)
+        if not best.full:
+            best.prediction = predict(best.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
+                                      stopband_edge=spec.stopband_edge)
+            best.reason = _shortfall(best.prediction, spec)
+            if best.reason:
+                # short at full resolution only: design it again, judged at full resolution
+                again = _design_candidate(Candidate(best.layout, best.estimate), *best.design, spec, full=True)
+                if again.meets:
+                    good = sorted([again] + good[1:], key=lambda c: c.cost.key())
+                    continue
         if not best.reason or len(good) == 1:
             break
         best.meets = False
@@ -609,6 +632,8 @@ def plan_layout(spec, layout, resampler=None):
         cand.prediction = predict(cand.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
                                   stopband_edge=spec.stopband_edge)
         cand.reason = _shortfall(cand.prediction, spec)
+        if cand.reason:  # short at full resolution only: design it again, judged there
+            cand = _design_candidate(Candidate(cand.layout, cand.estimate), layout, resampler, est, spec, full=True)
     if cand.reason:
         raise ChannelizerError(f"layout {cand.layout} does not meet the spec: {cand.reason}")
     return PlanResult(_to_plan(cand, spec), cand, [])

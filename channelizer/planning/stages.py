@@ -7,6 +7,7 @@ streaming state; the processor builds its own runners from them.
 
 from dataclasses import dataclass
 from fractions import Fraction
+import math
 import typing
 
 import numpy as np
@@ -37,16 +38,57 @@ def cic_taps(order, decimation, differential_delay=1):
 
 
 def fir_response(taps, f, *, fs):
-    """Complex response ``sum_k h[k] exp(-2j pi f k / fs)`` at frequencies ``f`` (Hz)."""
-    # Horner's rule in z^-1, as scipy.signal.freqz evaluates a worN array (numpy only:
-    # importing scipy.signal costs a command about a second of start-up)
+    """Complex response ``sum_k h[k] exp(-2j pi f k / fs)`` at frequencies ``f`` (Hz).
+
+    Notes
+    -----
+    At many frequencies per tap, Horner's rule in ``z^-1`` as ``scipy.signal.freqz``
+    evaluates a ``worN`` array (one pass over the frequencies per tap).  At few
+    frequencies per tap, where that loop's per-tap overhead dominates, the taps are
+    split into ``Q`` blocks of ``B ~ sqrt(n)``: with ``k = q B + r``,
+    ``H = sum_q z^{-B q} sum_r h[q B + r] z^{-r}``, one real matrix product and
+    ``B + Q`` powers of ``z^-1`` per frequency.  Either way the result agrees with
+    ``freqz`` to about ``1e-13`` of ``sum |h|`` (numpy only: importing scipy.signal
+    costs a command about a second of start-up).
+    """
     f = np.asarray(f, dtype=float)
-    b = np.asarray(taps, dtype=float)
-    zm1 = np.exp(-1j * (2 * np.pi * f.ravel() / fs))  # freqz's own rounding of the angle
-    h = np.full(zm1.shape, b[-1], dtype=complex)
-    for c in b[-2::-1]:
-        h = c + h * zm1  # freqz's order of operations, so its samples come out bit for bit
-    return h.reshape(f.shape)
+    b = np.asarray(taps, dtype=float).ravel()
+    w = 2 * np.pi * f.ravel() / fs
+    if w.size > _HORNER_ABOVE * b.size:
+        zm1 = np.exp(-1j * w)
+        h = np.full(zm1.shape, b[-1], dtype=complex)
+        for c in b[-2::-1]:
+            h = c + h * zm1
+        return h.reshape(f.shape)
+    n = b.size
+    blk = max(1, int(math.ceil(math.sqrt(n))))
+    nq = -(-n // blk)
+    hm = np.zeros(nq * blk)
+    hm[:n] = b
+    hm = hm.reshape(nq, blk).T  # (r, q)
+    out = np.empty(w.size, dtype=complex)
+    step = max(1, _RESPONSE_CHUNK // (blk + nq))
+    for i in range(0, w.size, step):
+        wi = w[i : i + step]
+        inner = _powers(np.exp(-1j * wi), blk) @ hm  # (frequency, q): the inner sums
+        out[i : i + step] = np.sum(inner * _powers(np.exp(-1j * blk * wi), nq), axis=1)
+    return out.reshape(f.shape)
+
+
+#: :func:`fir_response` runs Horner's rule above this many frequencies per tap.
+_HORNER_ABOVE = 4
+#: Frequencies x (blocks + block length) evaluated at once by :func:`fir_response`.
+_RESPONSE_CHUNK = 1 << 18
+
+
+def _powers(z, count):
+    """``z[:, None] ** arange(count)`` by repeated multiplication, as Horner's rule forms them."""
+    p = np.empty((z.size, count), dtype=complex)
+    p[:, :1] = 1.0
+    if count > 1:
+        p[:, 1:] = z[:, None]
+        np.cumprod(p[:, 1:], axis=1, out=p[:, 1:])
+    return p
 
 
 def is_halfband(taps, *, atol=1e-12):

@@ -1,0 +1,338 @@
+"""Equiripple linear-phase FIRs by the Remez exchange, on numpy alone.
+
+The amplitude of a symmetric FIR of length ``n`` is ``A(w) = Q(w) P(cos w)``, with
+``Q = 1`` and ``P`` a polynomial of degree ``r - 1``, ``r = (n + 1) / 2`` (odd ``n``,
+type I), or ``Q = cos(w / 2)``, ``r = n / 2`` (even ``n``, type II).  The weighted
+error ``W (D - A)`` on a dense grid is made to alternate with equal magnitude on
+``r + 1`` extremal points; the points are exchanged for the error's extrema until
+they settle (Parks & McClellan 1972).  ``P`` is carried in barycentric Lagrange
+form (Berrut & Trefethen 2004), with the weights in logarithms so that long
+filters neither overflow nor underflow.  The desired response ``D`` and the
+weight ``W`` are arbitrary samples on the grid: piecewise-constant bands as well
+as a CIC-droop compensator's ``1 / |H_cic|``.
+
+References
+----------
+T. W. Parks and J. H. McClellan, "Chebyshev approximation for nonrecursive digital
+filters with linear phase", IEEE Trans. Circuit Theory 19(2):189-194, 1972.
+J. H. McClellan, T. W. Parks and L. R. Rabiner, "A computer program for designing
+optimum FIR linear phase digital filters", IEEE Trans. Audio Electroacoust.
+21(6):506-526, 1973 (the grid of 16 points per extremal, from memory).
+J.-P. Berrut and L. N. Trefethen, "Barycentric Lagrange interpolation", SIAM
+Review 46(3):501-517, 2004.
+N. J. Higham, "The numerical stability of barycentric Lagrange interpolation", IMA
+J. Numer. Anal. 24(4):547-556, 2004.
+"""
+
+import numpy as np
+
+__all__ = ["equiripple_fit", "lattice_grid", "remez_bands", "GRID_DENSITY"]
+
+#: Grid points per extremal of the piecewise-constant designs (McClellan et al. 1973).
+GRID_DENSITY = 16
+MAX_ITERATIONS = 100
+#: The exchange stops when the largest error exceeds the levelled one by less than this
+#: fraction (or the extremal points stay where they are).
+CONVERGED = 1e-4
+#: Up to this many coefficients, they come from a linear solve at the nodes.
+SOLVE_UP_TO = 700
+#: Grid points x nodes evaluated at once (bounds the memory of one step).
+_CHUNK = 1 << 20
+
+
+def _log_weights(x):
+    """Barycentric weights ``1 / prod_{j != i} (x_i - x_j)`` as (sign, log |.|)."""
+    d = x[:, None] - x[None, :]
+    np.fill_diagonal(d, 1.0)
+    sign = np.where(np.count_nonzero(d < 0, axis=1) % 2, -1.0, 1.0)
+    return sign, -np.sum(np.log(np.abs(d)), axis=1)
+
+
+def _interpolate(xn, yn, x):
+    """Values at ``x`` of the polynomial through ``(xn, yn)`` (barycentric form)."""
+    sign, logw = _log_weights(xn)
+    bw = sign * np.exp(logw - np.max(logw))
+    out = np.empty(x.size)
+    step = max(1, _CHUNK // max(xn.size, 1))
+    for i in range(0, x.size, step):
+        xi = x[i : i + step]
+        d = xi[:, None] - xn[None, :]
+        with np.errstate(all="ignore"):
+            c = bw / d
+            val = (c @ yn) / np.sum(c, axis=1)
+        rows = np.flatnonzero(~np.isfinite(val))  # at a node
+        val[rows] = yn[np.argmin(np.abs(d[rows]), axis=1)]
+        out[i : i + step] = val
+    return out
+
+
+def _lagrange(xn, yn, x):
+    """Values at ``x`` of the polynomial through ``(xn, yn)``, each Lagrange basis
+    polynomial formed in logarithms (the first barycentric form: stable at points far
+    from every node too, Higham 2004)."""
+    sign, logw = _log_weights(xn)
+    out = np.empty(x.size)
+    step = max(1, _CHUNK // max(xn.size, 1))
+    for i in range(0, x.size, step):
+        d = x[i : i + step, None] - xn[None, :]
+        hit = d == 0.0
+        d[hit] = 1.0
+        logd = np.log(np.abs(d))
+        neg = d < 0
+        log_l = np.sum(logd, axis=1, keepdims=True)
+        sign_l = np.where(np.count_nonzero(neg, axis=1) % 2, -1.0, 1.0)[:, None]
+        basis = sign_l * sign * np.where(neg, -1.0, 1.0) * np.exp(log_l + logw - logd)
+        val = basis @ yn
+        rows, cols = np.nonzero(hit)
+        val[rows] = yn[cols]
+        out[i : i + step] = val
+    return out
+
+
+def _extrema(err, delta, ext):
+    """Indices of the alternating extrema of ``err`` at least ``|delta|`` in size.
+
+    The present extremal points ``ext`` are candidates too: in exact arithmetic their
+    error is ``+-delta``, in float64 it may fall short of it by a rounding.
+    """
+    left = np.concatenate([[-np.inf], err[:-1]])
+    right = np.concatenate([err[1:], [-np.inf]])
+    lmin = np.concatenate([[np.inf], err[:-1]])
+    rmin = np.concatenate([err[1:], [np.inf]])
+    peak = (err >= left) & (err >= right) & (err > 0)
+    trough = (err <= lmin) & (err <= rmin) & (err < 0)
+    mask = (peak | trough) & (np.abs(err) >= abs(delta) * (1.0 - 1e-9))
+    mask &= err != 0.0
+    mask[ext] = True
+    idx = np.flatnonzero(mask)
+    if idx.size == 0:
+        return idx
+    # one extremum per run of equal sign: the largest
+    s = err[idx] >= 0
+    run = np.concatenate([[0], np.cumsum(s[1:] != s[:-1])])
+    order = np.lexsort((-np.abs(err[idx]), run))
+    first = np.concatenate([[True], run[order][1:] != run[order][:-1]])
+    return np.sort(idx[order[first]])
+
+
+def _keep(idx, err, count):
+    """``count`` of the alternating extrema ``idx``: the smallest go, alternation kept
+    (an end alone, or an interior one with its smaller neighbour)."""
+    idx = list(idx)
+    while len(idx) > count:
+        mag = np.abs(err[idx])
+        i = int(np.argmin(mag))
+        if len(idx) - count == 1 or i == 0 or i == len(idx) - 1:
+            if len(idx) - count == 1 and 0 < i < len(idx) - 1:
+                i = 0 if mag[0] < mag[-1] else len(idx) - 1
+            del idx[i]
+        else:
+            j = i - 1 if mag[i - 1] < mag[i + 1] else i + 1
+            del idx[max(i, j)]
+            del idx[min(i, j)]
+    return np.array(idx)
+
+
+def _chebyshev(xn, yn, r):
+    """Coefficients ``c`` with ``P(cos w) = sum_m c_m cos(m w)`` for the polynomial of
+    degree ``r - 1`` through ``(xn, yn)``: sampled at the Chebyshev-Lobatto points and
+    transformed by a DCT-I (an FFT of the even extension)."""
+    if r == 1:
+        return np.array([yn[0]])
+    if r <= SOLVE_UP_TO:
+        # the Chebyshev-Vandermonde system at the nodes, by LU: a small residual there
+        with np.errstate(all="ignore"):
+            try:
+                return np.linalg.solve(np.cos(np.outer(np.arccos(np.clip(xn, -1.0, 1.0)), np.arange(r))), yn)
+            except np.linalg.LinAlgError:
+                pass
+    pk = _lagrange(xn, yn, np.cos(np.pi * np.arange(r) / (r - 1)))
+    v = np.real(np.fft.fft(np.concatenate([pk, pk[-2:0:-1]]))) / (r - 1)
+    c = v[:r].copy()
+    c[0] /= 2.0
+    c[-1] /= 2.0
+    return c
+
+
+def _cosine_sum(c, w, lattice):
+    """``sum_m c_m cos(m w)`` on a grid: by one FFT at the points ``w = pi j / lattice``,
+    directly at the others (band edges)."""
+    j = w * (lattice / np.pi)
+    on = np.abs(j - np.round(j)) <= 1e-9 * lattice
+    out = np.empty(w.size)
+    if np.any(on):
+        size = 2 * max(lattice, c.size)
+        full = np.real(np.fft.fft(c, size))
+        out[on] = full[np.round(j[on] * size / (2 * lattice)).astype(int) % size]
+    off = np.flatnonzero(~on)
+    step = max(1, _CHUNK // c.size)
+    for i in range(0, off.size, step):
+        sel = off[i : i + step]
+        out[sel] = np.cos(np.outer(w[sel], np.arange(c.size))) @ c
+    return out
+
+
+def _solve(w, d, wt, r, maxiter, lattice):
+    """Exchange on the grid ``w`` (radians, ascending); returns (coefficients of P, converged)."""
+    x = np.cos(w)
+    ext = np.round(np.linspace(0, w.size - 1, r + 1)).astype(int)
+    alt = np.where(np.arange(r + 1) % 2, -1.0, 1.0)
+    seen = []
+    best = (np.inf, None)
+    for _ in range(maxiter):
+        sign, logw = _log_weights(x[ext])
+        b = sign * np.exp(logw - np.max(logw))
+        delta = float(np.dot(b, d[ext]) / np.dot(b, alt / wt[ext]))
+        if not np.isfinite(delta):
+            break
+        yn = d[ext] - alt * delta / wt[ext]
+        c = _chebyshev(x[ext[:-1]], yn[:-1], r)
+        p = _cosine_sum(c, w, lattice)
+        exact = np.max(np.abs(p[ext[:-1]] - yn[:-1]) * wt[ext[:-1]]) <= 1e-3 * abs(delta)
+        if not exact:
+            # the coefficients lost the interpolant (a wild one, early in the exchange):
+            # evaluate the barycentric form on the grid instead
+            p = _interpolate(x[ext[:-1]], yn[:-1], x)
+        err = wt * (d - p)
+        peak = float(np.max(np.abs(err)))
+        if exact and peak < best[0]:
+            best = (peak, c)
+        err[ext] = alt * delta  # exact in theory; float64 may round a tiny delta away in d - P
+        new = _extrema(err, delta, ext)
+        if new.size < r + 1:
+            break
+        new = _keep(new, err, r + 1)
+        # settled: the largest error is the levelled one, or the points come back
+        # (a cycle of rounding once float64 can level no further)
+        if peak - abs(delta) <= CONVERGED * peak or any(np.array_equal(new, s) for s in seen):
+            return best[1], True
+        seen = [ext, new][-2:]
+        ext = new
+    return best[1], False
+
+
+def _taps(n, c):
+    """Taps of the length-``n`` symmetric FIR with ``A(w) = Q(w) sum_m c_m cos(m w)``."""
+    if n % 2:
+        half = np.concatenate([[c[0]], c[1:] / 2.0])  # h[centre + m]
+        return np.concatenate([half[:0:-1], half])
+    # type II: cos(w/2) cos(m w) = (cos((m + 1/2) w) + cos((m - 1/2) w)) / 2
+    b = np.zeros(c.size)
+    b[0] = c[0]
+    b[1:] += c[1:] / 2.0
+    b[:-1] += c[1:] / 2.0
+    half = b / 2.0  # h[n/2 + k], k = 0 .. r - 1
+    return np.concatenate([half[::-1], half])
+
+
+def lattice_grid(lo, hi, *, fs, lattice):
+    """Grid on ``[lo, hi]`` Hz: its edges and the points ``k fs / (2 lattice)`` between them."""
+    step = fs / (2.0 * lattice)
+    k = np.arange(int(np.floor(lo / step)) + 1, int(np.ceil(hi / step)))
+    return np.concatenate([[lo], k * step, [hi]]) if hi > lo else np.array([lo])
+
+
+def equiripple_fit(n, *, fs, f, desired, weight, maxiter=MAX_ITERATIONS, lattice=None):
+    """Symmetric length-``n`` FIR minimising ``max |weight (A - desired)|`` over ``f``.
+
+    Parameters
+    ----------
+    n : int
+        Filter length (odd: type I, even: type II, whose amplitude is 0 at ``fs/2``).
+    fs : float
+        Rate at which the filter runs, Hz.
+    f, desired, weight : array_like
+        Grid (Hz, within ``[0, fs/2]``), the amplitude wanted there and the weight of
+        its error.
+    maxiter : int
+        Most exchanges.
+    lattice : int, optional
+        Grid points at ``k fs / (2 lattice)`` (as :func:`lattice_grid` makes them) are
+        evaluated by one FFT per exchange, the others directly.
+
+    Returns
+    -------
+    (taps, err) : (ndarray, float)
+        The taps and the largest weighted error on ``f``; ``(NaN taps, inf)`` when the
+        exchange breaks down.
+
+    References
+    ----------
+    Parks & McClellan (1972); see the module's references.
+    """
+    f = np.asarray(f, dtype=float)
+    d = np.asarray(desired, dtype=float)
+    wt = np.asarray(weight, dtype=float)
+    order = np.argsort(f, kind="stable")
+    f, d, wt = f[order], d[order], wt[order]
+    keep = np.concatenate([[True], np.diff(f) > 0])
+    f, d, wt = f[keep], d[keep], wt[keep]
+    w = 2.0 * np.pi * f / fs
+    if n % 2:
+        r, q = (n + 1) // 2, np.ones_like(w)
+    else:
+        r, q = n // 2, np.cos(w / 2.0)
+        ok = q > 1e-6
+        w, d, wt, q = w[ok], d[ok], wt[ok], q[ok]
+    bad = np.full(n, np.nan), np.inf
+    if r < 1 or w.size < r + 1:
+        return bad
+    lattice = 8 * r if lattice is None else int(lattice)
+    with np.errstate(all="ignore"):
+        c, _ = _solve(w, d / q, wt * q, r, maxiter, lattice)
+        if c is None or not np.all(np.isfinite(c)):
+            return bad
+        amp = q * _cosine_sum(c, w, lattice)
+    return _taps(n, c), float(np.max(np.abs(wt * (amp - d))))
+
+
+def remez_bands(numtaps, edges, desired, *, weight=None, fs, grid_density=GRID_DENSITY, maxiter=MAX_ITERATIONS):
+    """Equiripple filter with piecewise-constant bands, like ``scipy.signal.remez``.
+
+    Parameters
+    ----------
+    numtaps : int
+        Filter length.
+    edges : sequence of float
+        Band edges in Hz, ascending, pairs ``[lo0, hi0, lo1, hi1, ...]`` within ``[0, fs/2]``.
+    desired, weight : sequence of float
+        Amplitude and error weight of each band (weight default 1).
+    fs : float
+        Sample rate, Hz.
+    grid_density : int
+        Grid points per extremal (16, as McClellan et al. 1973).
+    maxiter : int
+        Most exchanges.
+
+    Returns
+    -------
+    ndarray
+        The taps, all NaN when the exchange breaks down.
+
+    Notes
+    -----
+    The grid spacing is that of McClellan et al. (1973), ``fs / (2 grid_density r)``
+    for ``r`` extremals less one; its points lie on that lattice (one FFT per exchange
+    evaluates them), plus the band edges themselves.
+    """
+    edges = np.asarray(edges, dtype=float)
+    nb = edges.size // 2
+    if edges.size != 2 * nb or len(desired) != nb:
+        raise ValueError(f"edges must be pairs, one desired value each: got {edges.size} edges, {len(desired)} values")
+    if np.any(np.diff(edges) < 0) or edges[0] < 0 or edges[-1] > fs / 2.0:
+        raise ValueError(f"band edges {edges.tolist()} must ascend within [0, fs/2 = {fs / 2.0:g}] Hz")
+    weight = np.ones(nb) if weight is None else np.asarray(weight, dtype=float)
+    r = (numtaps + 1) // 2 if numtaps % 2 else numtaps // 2
+    lattice = grid_density * r
+    f, d, w = [], [], []
+    for i in range(nb):
+        g = lattice_grid(edges[2 * i], edges[2 * i + 1], fs=fs, lattice=lattice)
+        f.append(g)
+        d.append(np.full(g.size, float(desired[i])))
+        w.append(np.full(g.size, float(weight[i])))
+    f, d, w = np.concatenate(f), np.concatenate(d), np.concatenate(w)
+    if numtaps % 2 == 0:
+        keep = f <= fs / 2.0 * (1.0 - 1.0 / lattice)  # type II: its amplitude is 0 at fs/2
+        f, d, w = f[keep], d[keep], w[keep]
+    taps, _ = equiripple_fit(numtaps, fs=fs, f=f, desired=d, weight=w, maxiter=maxiter, lattice=lattice)
+    return taps
