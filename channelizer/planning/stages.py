@@ -160,21 +160,28 @@ class CicStage:
     def num_taps(self):
         return self.order * (self.decimation * self.differential_delay - 1) + 1
 
-    def response(self, f, *, fs):
-        """Closed-form response ``[sin(pi f R M / fs) / (R M sin(pi f / fs))]^N`` with its phase."""
-        f = np.asarray(f, dtype=float)
+    def _ratio(self, x):
+        """``sin(pi x R M) / (R M sin(pi x))`` at ``x = f / fs``, its limit where ``sin(pi x) = 0``."""
         rm = self.decimation * self.differential_delay
-        x = f / fs
         s = np.sin(np.pi * x)
         small = np.abs(s) < 1e-12
         m = np.round(x)
-        ratio = np.where(
+        return np.where(
             small,
             np.where((m * (rm - 1)) % 2 == 0, 1.0, -1.0),
             np.sin(np.pi * x * rm) / np.where(small, 1.0, rm * s),
         )
+
+    def response(self, f, *, fs):
+        """Closed-form response ``[sin(pi f R M / fs) / (R M sin(pi f / fs))]^N`` with its phase."""
+        x = np.asarray(f, dtype=float) / fs
+        rm = self.decimation * self.differential_delay
         phase = np.exp(-1j * np.pi * x * (rm - 1) * self.order)
-        return ratio**self.order * phase
+        return self._ratio(x) ** self.order * phase
+
+    def magnitude(self, f, *, fs):
+        """``|response(f)|`` without forming the phase."""
+        return np.abs(self._ratio(np.asarray(f, dtype=float) / fs)) ** self.order
 
     @property
     def delay(self):
