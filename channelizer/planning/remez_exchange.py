@@ -179,6 +179,7 @@ def _solve(w, d, wt, r, maxiter, lattice):
     alt = np.where(np.arange(r + 1) % 2, -1.0, 1.0)
     seen = []
     best = (np.inf, None)
+    floor = 1e-13 * float(np.max(np.abs(d) * wt))  # float64's resolution of the weighted targets
     for _ in range(maxiter):
         sign, logw = _log_weights(x[ext])
         b = sign * np.exp(logw - np.max(logw))
@@ -188,6 +189,12 @@ def _solve(w, d, wt, r, maxiter, lattice):
         yn = d[ext] - alt * delta / wt[ext]
         c = _chebyshev(x[ext[:-1]], yn[:-1], r)
         p = _cosine_sum(c, w, lattice)
+        if abs(delta) <= floor:
+            # either the targets are met to float64's resolution of them (a smooth
+            # passband alone), or the points are a poor first guess: the grid tells
+            pb = _interpolate(x[ext[:-1]], yn[:-1], x)
+            if max(np.max(np.abs(d - pb) * wt), np.max(np.abs(p - pb) * wt)) <= 1e3 * floor:
+                return c, True
         exact = np.max(np.abs(p[ext[:-1]] - yn[:-1]) * wt[ext[:-1]]) <= 1e-3 * abs(delta)
         if not exact:
             # the coefficients lost the interpolant (a wild one, early in the exchange):
@@ -195,7 +202,7 @@ def _solve(w, d, wt, r, maxiter, lattice):
             p = _interpolate(x[ext[:-1]], yn[:-1], x)
         err = wt * (d - p)
         peak = float(np.max(np.abs(err)))
-        if exact and peak < best[0]:
+        if exact and peak < best[0]:  # only coefficients that hold the interpolant
             best = (peak, c)
         err[ext] = alt * delta  # exact in theory; float64 may round a tiny delta away in d - P
         new = _extrema(err, delta, ext)
