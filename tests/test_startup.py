@@ -13,7 +13,7 @@ import sys
 import pytest
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-HEAVY = ("numpy", "scipy", "scipy.signal", "scipy.stats", "matplotlib", "yaml", "dask", "distributed")
+HEAVY = ("numpy", "scipy", "scipy.signal", "scipy.stats", "scipy.optimize", "matplotlib", "yaml", "dask", "distributed")
 
 _PROBE = """
 import contextlib, io, json, sys
@@ -65,6 +65,20 @@ def test_plan_without_plot_skips_matplotlib():
     got = _loaded("plan", "--rate", "2.4M", "--bandwidth", "12.5k", "--output-rate", "48k")
     assert got["status"] == 0
     assert not got["heavy"]["matplotlib"] and not got["heavy"]["dask"]
+
+
+@pytest.mark.parametrize("argv", [
+    ["--rate", "2.4M", "--bandwidth", "10k"],
+    ["--rate", "61.44M", "--bandwidth", "200k"],
+    ["--rate", "1.024M", "--bandwidth", "100k", "--rejection-db", "60", "--ripple-db", "0.5"],
+    ["--rate", "2.4M", "--bandwidth", "15k", "--output-rate", "44.1k"],
+])
+def test_plan_designs_without_scipy_signal_or_optimize(argv):
+    # the planner's filter design runs on numpy alone (Remez exchange, Kaiser formulas,
+    # the compensator's fit): a plan command never pays for importing these
+    got = _loaded("plan", *argv)
+    assert got["status"] == 0
+    assert not got["heavy"]["scipy.signal"] and not got["heavy"]["scipy.optimize"], got["heavy"]
 
 
 def test_fir_response_matches_freqz():
