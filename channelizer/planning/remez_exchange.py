@@ -133,20 +133,26 @@ def _keep(idx, err, count):
     return np.array(idx)
 
 
-def _chebyshev(xn, yn, r):
+def _chebyshev(xn, yn, r, *, careful):
     """Coefficients ``c`` with ``P(cos w) = sum_m c_m cos(m w)`` for the polynomial of
-    degree ``r - 1`` through ``(xn, yn)``: sampled at the Chebyshev-Lobatto points and
-    transformed by a DCT-I (an FFT of the even extension)."""
+    degree ``r - 1`` through ``(xn, yn)``.
+
+    Fast: ``P`` sampled at the Chebyshev-Lobatto points by the barycentric formula and
+    transformed by a DCT-I (an FFT of the even extension).  ``careful``: the
+    Chebyshev-Vandermonde system at the nodes solved by LU (up to ``SOLVE_UP_TO``
+    coefficients), else the samples by the first barycentric form (Higham 2004),
+    accurate where the second loses digits far from every node.
+    """
     if r == 1:
         return np.array([yn[0]])
-    if r <= SOLVE_UP_TO:
-        # the Chebyshev-Vandermonde system at the nodes, by LU: a small residual there
+    if careful and r <= SOLVE_UP_TO:
         with np.errstate(all="ignore"):
             try:
                 return np.linalg.solve(np.cos(np.outer(np.arccos(np.clip(xn, -1.0, 1.0)), np.arange(r))), yn)
             except np.linalg.LinAlgError:
                 pass
-    pk = _lagrange(xn, yn, np.cos(np.pi * np.arange(r) / (r - 1)))
+    xk = np.cos(np.pi * np.arange(r) / (r - 1))
+    pk = _lagrange(xn, yn, xk) if careful else _interpolate(xn, yn, xk)
     v = np.real(np.fft.fft(np.concatenate([pk, pk[-2:0:-1]]))) / (r - 1)
     c = v[:r].copy()
     c[0] /= 2.0
@@ -187,15 +193,18 @@ def _solve(w, d, wt, r, maxiter, lattice):
         if not np.isfinite(delta):
             break
         yn = d[ext] - alt * delta / wt[ext]
-        c = _chebyshev(x[ext[:-1]], yn[:-1], r)
-        p = _cosine_sum(c, w, lattice)
+        for careful in (False, True):
+            c = _chebyshev(x[ext[:-1]], yn[:-1], r, careful=careful)
+            p = _cosine_sum(c, w, lattice)
+            exact = np.max(np.abs(p[ext[:-1]] - yn[:-1]) * wt[ext[:-1]]) <= 1e-3 * abs(delta)
+            if exact:
+                break
         if abs(delta) <= floor:
             # either the targets are met to float64's resolution of them (a smooth
             # passband alone), or the points are a poor first guess: the grid tells
             pb = _interpolate(x[ext[:-1]], yn[:-1], x)
             if max(np.max(np.abs(d - pb) * wt), np.max(np.abs(p - pb) * wt)) <= 1e3 * floor:
                 return c, True
-        exact = np.max(np.abs(p[ext[:-1]] - yn[:-1]) * wt[ext[:-1]]) <= 1e-3 * abs(delta)
         if not exact:
             # the coefficients lost the interpolant (a wild one, early in the exchange):
             # evaluate the barycentric form on the grid instead
