@@ -48,9 +48,10 @@ def _log_weights(x):
     return sign, -np.sum(np.log(np.abs(d)), axis=1)
 
 
-def _interpolate(xn, yn, x):
-    """Values at ``x`` of the polynomial through ``(xn, yn)`` (barycentric form)."""
-    sign, logw = _log_weights(xn)
+def _interpolate(xn, yn, x, weights=None):
+    """Values at ``x`` of the polynomial through ``(xn, yn)`` (barycentric form);
+    ``weights`` are :func:`_log_weights` of ``xn`` when known."""
+    sign, logw = _log_weights(xn) if weights is None else weights
     bw = sign * np.exp(logw - np.max(logw))
     out = np.empty(x.size)
     step = max(1, _CHUNK // max(xn.size, 1))
@@ -133,7 +134,7 @@ def _keep(idx, err, count):
     return np.array(idx)
 
 
-def _chebyshev(xn, yn, r, *, careful):
+def _chebyshev(xn, yn, r, *, careful, weights=None):
     """Coefficients ``c`` with ``P(cos w) = sum_m c_m cos(m w)`` for the polynomial of
     degree ``r - 1`` through ``(xn, yn)``.
 
@@ -152,7 +153,7 @@ def _chebyshev(xn, yn, r, *, careful):
             except np.linalg.LinAlgError:
                 pass
     xk = np.cos(np.pi * np.arange(r) / (r - 1))
-    pk = _lagrange(xn, yn, xk) if careful else _interpolate(xn, yn, xk)
+    pk = _lagrange(xn, yn, xk) if careful else _interpolate(xn, yn, xk, weights)
     v = np.real(np.fft.fft(np.concatenate([pk, pk[-2:0:-1]]))) / (r - 1)
     c = v[:r].copy()
     c[0] /= 2.0
@@ -193,8 +194,11 @@ def _solve(w, d, wt, r, maxiter, lattice):
         if not np.isfinite(delta):
             break
         yn = d[ext] - alt * delta / wt[ext]
+        # weights of the first r nodes from those of all r + 1: w_i (x_i - x_r)
+        gap = x[ext[:-1]] - x[ext[-1]]
+        weights = (sign[:-1] * np.sign(gap), logw[:-1] + np.log(np.abs(gap)))
         for careful in (False, True):
-            c = _chebyshev(x[ext[:-1]], yn[:-1], r, careful=careful)
+            c = _chebyshev(x[ext[:-1]], yn[:-1], r, careful=careful, weights=weights)
             p = _cosine_sum(c, w, lattice)
             exact = np.max(np.abs(p[ext[:-1]] - yn[:-1]) * wt[ext[:-1]]) <= 1e-3 * abs(delta)
             if exact:
@@ -202,13 +206,13 @@ def _solve(w, d, wt, r, maxiter, lattice):
         if abs(delta) <= floor:
             # either the targets are met to float64's resolution of them (a smooth
             # passband alone), or the points are a poor first guess: the grid tells
-            pb = _interpolate(x[ext[:-1]], yn[:-1], x)
+            pb = _interpolate(x[ext[:-1]], yn[:-1], x, weights)
             if max(np.max(np.abs(d - pb) * wt), np.max(np.abs(p - pb) * wt)) <= 1e3 * floor:
                 return c, True
         if not exact:
             # the coefficients lost the interpolant (a wild one, early in the exchange):
             # evaluate the barycentric form on the grid instead
-            p = _interpolate(x[ext[:-1]], yn[:-1], x)
+            p = _interpolate(x[ext[:-1]], yn[:-1], x, weights)
         err = wt * (d - p)
         peak = float(np.max(np.abs(err)))
         if exact and peak < best[0]:  # only coefficients that hold the interpolant
