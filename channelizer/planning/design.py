@@ -357,8 +357,8 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=
                        gain=1.0, fold_rate=None):
     """FIR whose passband is ``gain / |H_cic|`` on ``[0, fp]``: it undoes the CIC's droop.
 
-    A true minimax fit (linear programming, :func:`minimax.minimax_fit`) of a symmetric
-    FIR of any length running at ``fs`` (default: the CIC's output rate).  Its
+    A true minimax fit (:func:`minimax.minimax_fit`: the Remez exchange, or a linear
+    programme where a cap binds) of a symmetric FIR of any length running at ``fs`` (default: the CIC's output rate).  Its
     stopbands are the alias bands of its own decimation (or everything from
     ``stop_edge`` to ``fs/2``, a final stage that also removes the neighbours).  A
     stage that does not decimate has no stopband: it only may not amplify, i.e. the
