@@ -116,6 +116,43 @@ def _extrema(err, delta, ext):
     return np.sort(idx[order[first]])
 
 
+def _exchange(err, ext):
+    """The next ``len(ext)`` alternating points: each point moves to the largest error of
+    its run of equal sign, and the largest error of all, when it lies in a run without a
+    point, comes in for the neighbour of its sign (or, beyond an end, for the far end).
+
+    ``err`` holds the levelled value ``+-delta`` at ``ext``, so the points' runs alternate
+    and every step keeps ``|delta|`` growing (Parks & McClellan 1972; the exchange of the
+    global extremum, E. Ya. Remez 1934, from memory).
+    """
+    pos = err >= 0
+    run = np.concatenate([[0], np.cumsum(pos[1:] != pos[:-1])])
+    starts = np.flatnonzero(np.concatenate([[True], run[1:] != run[:-1]]))
+    mag = np.abs(err)
+    # the index of the largest |err| in each run
+    order = np.lexsort((-mag, run))
+    first = order[np.concatenate([[True], run[order][1:] != run[order][:-1]])]
+    top = first[np.argsort(run[first])]
+    del starts
+    new = top[run[ext]]
+    g = int(np.argmax(mag))
+    rg = run[g]
+    taken = run[new]
+    if rg in set(taken.tolist()):
+        return new
+    k = int(np.searchsorted(taken, rg))  # g lies between new[k - 1] and new[k]
+    same = lambda i: pos[new[i]] == pos[g]  # noqa: E731
+    if k == 0:
+        new = np.concatenate([[g], new[:-1]]) if not same(0) else np.concatenate([[g], new[1:]])
+    elif k == new.size:
+        new = np.concatenate([new[1:], [g]]) if not same(-1) else np.concatenate([new[:-1], [g]])
+    else:
+        i = k - 1 if same(k - 1) else k
+        new = new.copy()
+        new[i] = g
+    return np.sort(new)
+
+
 def _keep(idx, err, count):
     """``count`` of the alternating extrema ``idx``: the smallest go, alternation kept
     (an end alone, or an interior one with its smaller neighbour)."""
@@ -162,27 +199,54 @@ def _chebyshev(xn, yn, r, *, careful, weights=None):
 
 
 def _cosine_sum(c, w, lattice):
-    """``sum_m c_m cos(m w)`` on a grid: by one FFT at the points ``w = pi j / lattice``,
-    directly at the others (band edges)."""
-    j = w * (lattice / np.pi)
-    on = np.abs(j - np.round(j)) <= 1e-9 * lattice
+    """``sum_m c_m cos(m w)`` on a grid: one FFT for each run of points a step
+    ``pi / lattice`` apart (``a_m = c_m exp(-j m w0)`` transformed gives the run from
+    ``w0``), directly at the others (band edges)."""
     out = np.empty(w.size)
-    if np.any(on):
-        size = 2 * max(lattice, c.size)
-        full = np.real(np.fft.fft(c, size))
-        out[on] = full[np.round(j[on] * size / (2 * lattice)).astype(int) % size]
-    off = np.flatnonzero(~on)
-    step = max(1, _CHUNK // c.size)
-    for i in range(0, off.size, step):
-        sel = off[i : i + step]
+    step = np.pi / lattice
+    size = 2 * lattice
+    done = np.zeros(w.size, bool)
+    if w.size > 1 and size >= c.size:
+        linked = np.abs(np.diff(w) - step) <= 1e-9 * step
+        # runs of linked neighbours: [start, stop) over the points
+        edges = np.flatnonzero(np.diff(np.concatenate([[0], linked.astype(np.int8), [0]])))
+        for a, b in zip(edges[0::2], edges[1::2] + 1):
+            if b - a < 8 or b - a > size:
+                continue
+            mod = c * np.exp(-1j * w[a] * np.arange(c.size))
+            out[a:b] = np.real(np.fft.fft(mod, size))[: b - a]
+            done[a:b] = True
+    off = np.flatnonzero(~done)
+    chunk = max(1, _CHUNK // c.size)
+    for i in range(0, off.size, chunk):
+        sel = off[i : i + chunk]
         out[sel] = np.cos(np.outer(w[sel], np.arange(c.size))) @ c
     return out
 
 
-def _solve(w, d, wt, r, maxiter, lattice):
-    """Exchange on the grid ``w`` (radians, ascending); returns (coefficients of P, converged)."""
+def _band_start(w, r, lattice):
+    """Another first guess: the points shared out between the grid's bands (runs of
+    grid steps) by their widths, each band's edges among them."""
+    gap = np.flatnonzero(np.diff(w) > 1.5 * np.pi / lattice)
+    lo = np.concatenate([[0], gap + 1])
+    hi = np.concatenate([gap, [w.size - 1]])
+    width = (w[hi] - w[lo]) + 1e-12
+    share = np.maximum(1, np.round((r + 1) * width / width.sum()).astype(int))
+    while share.sum() > r + 1:
+        share[np.argmax(share)] -= 1
+    while share.sum() < r + 1:
+        share[np.argmax(width / share)] += 1
+    pts = [np.round(np.linspace(a, b, k)).astype(int) if k > 1 else np.array([a]) for a, b, k in zip(lo, hi, share)]
+    ext = np.unique(np.concatenate(pts))
+    return ext if ext.size == r + 1 else None
+
+
+def _solve(w, d, wt, r, maxiter, lattice, ext=None):
+    """Exchange on the grid ``w`` (radians, ascending) from the points ``ext`` (default:
+    evenly spread over the grid); returns (coefficients of P, converged)."""
     x = np.cos(w)
-    ext = np.round(np.linspace(0, w.size - 1, r + 1)).astype(int)
+    if ext is None:
+        ext = np.round(np.linspace(0, w.size - 1, r + 1)).astype(int)
     alt = np.where(np.arange(r + 1) % 2, -1.0, 1.0)
     seen = []
     best = (np.inf, None)
@@ -200,7 +264,11 @@ def _solve(w, d, wt, r, maxiter, lattice):
         for careful in (False, True):
             c = _chebyshev(x[ext[:-1]], yn[:-1], r, careful=careful, weights=weights)
             p = _cosine_sum(c, w, lattice)
-            exact = np.max(np.abs(p[ext[:-1]] - yn[:-1]) * wt[ext[:-1]]) <= 1e-3 * abs(delta)
+            # the coefficients hold the interpolant: they meet the nodes, and their sum
+            # rounds off less than the error level (a wild one's would not)
+            tol = 1e-3 * abs(delta) + floor
+            exact = (np.max(np.abs(p[ext[:-1]] - yn[:-1]) * wt[ext[:-1]]) <= tol
+                     and 1e-15 * np.sum(np.abs(c)) * np.max(wt) <= tol)
             if exact:
                 break
         if abs(delta) <= floor:
@@ -218,10 +286,7 @@ def _solve(w, d, wt, r, maxiter, lattice):
         if exact and peak < best[0]:  # only coefficients that hold the interpolant
             best = (peak, c)
         err[ext] = alt * delta  # exact in theory; float64 may round a tiny delta away in d - P
-        new = _extrema(err, delta, ext)
-        if new.size < r + 1:
-            break
-        new = _keep(new, err, r + 1)
+        new = _exchange(err, ext)
         # settled: the largest error is the levelled one, or the points come back
         # (a cycle of rounding once float64 can level no further)
         if peak - abs(delta) <= CONVERGED * peak or any(np.array_equal(new, s) for s in seen):
@@ -229,6 +294,11 @@ def _solve(w, d, wt, r, maxiter, lattice):
         seen = [ext, new][-2:]
         ext = new
     return best[1], False
+
+
+def _peak(c, w, d, wt, lattice):
+    """Largest weighted error of the coefficients ``c`` on the grid."""
+    return float(np.max(np.abs(wt * (d - _cosine_sum(c, w, lattice)))))
 
 
 def _taps(n, c):
@@ -246,10 +316,12 @@ def _taps(n, c):
 
 
 def lattice_grid(lo, hi, *, fs, lattice):
-    """Grid on ``[lo, hi]`` Hz: its edges and the points ``k fs / (2 lattice)`` between them."""
+    """Grid on ``[lo, hi]`` Hz as McClellan et al. (1973) lay it: from ``lo`` in steps
+    of ``fs / (2 lattice)``, the last point moved onto ``hi``."""
     step = fs / (2.0 * lattice)
-    k = np.arange(int(np.floor(lo / step)) + 1, int(np.ceil(hi / step)))
-    return np.concatenate([[lo], k * step, [hi]]) if hi > lo else np.array([lo])
+    pts = lo + step * np.arange(int(np.floor((hi - lo) / step)) + 1)
+    pts[-1] = hi
+    return pts
 
 
 def equiripple_fit(n, *, fs, f, desired, weight, maxiter=MAX_ITERATIONS, lattice=None):
@@ -267,8 +339,8 @@ def equiripple_fit(n, *, fs, f, desired, weight, maxiter=MAX_ITERATIONS, lattice
     maxiter : int
         Most exchanges.
     lattice : int, optional
-        Grid points at ``k fs / (2 lattice)`` (as :func:`lattice_grid` makes them) are
-        evaluated by one FFT per exchange, the others directly.
+        Runs of grid points ``fs / (2 lattice)`` apart (as :func:`lattice_grid` makes
+        them) are evaluated by one FFT each per exchange, the others directly.
 
     Returns
     -------
@@ -299,7 +371,14 @@ def equiripple_fit(n, *, fs, f, desired, weight, maxiter=MAX_ITERATIONS, lattice
         return bad
     lattice = 8 * r if lattice is None else int(lattice)
     with np.errstate(all="ignore"):
-        c, _ = _solve(w, d / q, wt * q, r, maxiter, lattice)
+        c, converged = _solve(w, d / q, wt * q, r, maxiter, lattice)
+        if c is None or not converged:
+            # a first guess the exchange could not recover from: start again from the
+            # points shared out band by band, and keep the better fit
+            start = _band_start(w, r, lattice)
+            c2, _ = _solve(w, d / q, wt * q, r, maxiter, lattice, start) if start is not None else (None, False)
+            if c is None or (c2 is not None and _peak(c2, w, d / q, wt * q, lattice) < _peak(c, w, d / q, wt * q, lattice)):
+                c = c2
         if c is None or not np.all(np.isfinite(c)):
             return bad
         amp = q * _cosine_sum(c, w, lattice)
@@ -331,9 +410,9 @@ def remez_bands(numtaps, edges, desired, *, weight=None, fs, grid_density=GRID_D
 
     Notes
     -----
-    The grid spacing is that of McClellan et al. (1973), ``fs / (2 grid_density r)``
-    for ``r`` extremals less one; its points lie on that lattice (one FFT per exchange
-    evaluates them), plus the band edges themselves.
+    The grid is that of McClellan et al. (1973): each band from its lower edge in steps
+    of ``fs / (2 grid_density r)`` (``r`` extremals less one), the last point moved onto
+    its upper edge; one FFT per band and exchange evaluates it.
     """
     edges = np.asarray(edges, dtype=float)
     nb = edges.size // 2
