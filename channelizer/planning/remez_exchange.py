@@ -90,32 +90,6 @@ def _lagrange(xn, yn, x):
     return out
 
 
-def _extrema(err, delta, ext):
-    """Indices of the alternating extrema of ``err`` at least ``|delta|`` in size.
-
-    The present extremal points ``ext`` are candidates too: in exact arithmetic their
-    error is ``+-delta``, in float64 it may fall short of it by a rounding.
-    """
-    left = np.concatenate([[-np.inf], err[:-1]])
-    right = np.concatenate([err[1:], [-np.inf]])
-    lmin = np.concatenate([[np.inf], err[:-1]])
-    rmin = np.concatenate([err[1:], [np.inf]])
-    peak = (err >= left) & (err >= right) & (err > 0)
-    trough = (err <= lmin) & (err <= rmin) & (err < 0)
-    mask = (peak | trough) & (np.abs(err) >= abs(delta) * (1.0 - 1e-9))
-    mask &= err != 0.0
-    mask[ext] = True
-    idx = np.flatnonzero(mask)
-    if idx.size == 0:
-        return idx
-    # one extremum per run of equal sign: the largest
-    s = err[idx] >= 0
-    run = np.concatenate([[0], np.cumsum(s[1:] != s[:-1])])
-    order = np.lexsort((-np.abs(err[idx]), run))
-    first = np.concatenate([[True], run[order][1:] != run[order][:-1]])
-    return np.sort(idx[order[first]])
-
-
 def _exchange(err, ext):
     """The next ``len(ext)`` alternating points: each point moves to the largest error of
     its run of equal sign, and the largest error of all, when it lies in a run without a
@@ -127,13 +101,11 @@ def _exchange(err, ext):
     """
     pos = err >= 0
     run = np.concatenate([[0], np.cumsum(pos[1:] != pos[:-1])])
-    starts = np.flatnonzero(np.concatenate([[True], run[1:] != run[:-1]]))
     mag = np.abs(err)
     # the index of the largest |err| in each run
     order = np.lexsort((-mag, run))
     first = order[np.concatenate([[True], run[order][1:] != run[order][:-1]])]
     top = first[np.argsort(run[first])]
-    del starts
     new = top[run[ext]]
     g = int(np.argmax(mag))
     rg = run[g]
@@ -151,24 +123,6 @@ def _exchange(err, ext):
         new = new.copy()
         new[i] = g
     return np.sort(new)
-
-
-def _keep(idx, err, count):
-    """``count`` of the alternating extrema ``idx``: the smallest go, alternation kept
-    (an end alone, or an interior one with its smaller neighbour)."""
-    idx = list(idx)
-    while len(idx) > count:
-        mag = np.abs(err[idx])
-        i = int(np.argmin(mag))
-        if len(idx) - count == 1 or i == 0 or i == len(idx) - 1:
-            if len(idx) - count == 1 and 0 < i < len(idx) - 1:
-                i = 0 if mag[0] < mag[-1] else len(idx) - 1
-            del idx[i]
-        else:
-            j = i - 1 if mag[i - 1] < mag[i + 1] else i + 1
-            del idx[max(i, j)]
-            del idx[min(i, j)]
-    return np.array(idx)
 
 
 def _chebyshev(xn, yn, r, *, careful, weights=None):
