@@ -21,7 +21,7 @@ from ..units import format_hz
 from .limits import check_time
 from .kaiser import kaiser_beta, kaiser_length, kaiser_lowpass
 from .minimax import minimax_fit
-from .remez_exchange import equiripple_fit, lattice_grid, remez_bands
+from .remez_exchange import equiripple_fit, remez_bands
 from .stages import CicStage, fir_response
 
 __all__ = [
@@ -79,8 +79,11 @@ def _dense(lo, hi, n):
 
 
 def _band_grid(lo, hi, *, fs, lattice, least):
-    """Points on ``[lo, hi]`` on the exchange's FFT lattice, or ``least`` evenly spaced."""
-    g = lattice_grid(lo, hi, fs=fs, lattice=lattice)
+    """``[lo, hi]``: its edges and the points ``k fs / (2 lattice)`` between them (runs
+    the exchange evaluates by FFT), or ``least`` evenly spaced points."""
+    step = fs / (2.0 * lattice)
+    k = np.arange(int(np.floor(lo / step)) + 1, int(np.ceil(hi / step)))
+    g = np.concatenate([[lo], k * step, [hi]])
     return g if g.size >= least else _dense(lo, hi, least)
 
 
