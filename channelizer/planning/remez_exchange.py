@@ -34,6 +34,9 @@ MAX_ITERATIONS = 100
 #: The exchange stops when the largest error exceeds the levelled one by less than this
 #: fraction (or the extremal points stay where they are).
 CONVERGED = 1e-4
+#: Exchanges in a row that may fail to raise the levelled error by a millionth before
+#: the exchange stops.
+STALL = 6
 #: Up to this many coefficients, they come from a linear solve at the nodes.
 SOLVE_UP_TO = 700
 #: Grid points x nodes evaluated at once (bounds the memory of one step).
@@ -204,12 +207,19 @@ def _solve(w, d, wt, r, maxiter, lattice, ext=None):
     alt = np.where(np.arange(r + 1) % 2, -1.0, 1.0)
     seen = []
     best = (np.inf, None)
+    level, stalled = 0.0, 0
     floor = 1e-13 * float(np.max(np.abs(d) * wt))  # float64's resolution of the weighted targets
     for _ in range(maxiter):
         sign, logw = _log_weights(x[ext])
         b = sign * np.exp(logw - np.max(logw))
         delta = float(np.dot(b, d[ext]) / np.dot(b, alt / wt[ext]))
         if not np.isfinite(delta):
+            break
+        # each exchange raises the levelled error; where it stops rising for a while,
+        # float64 has lost the thread (a second start serves better than more rounds)
+        stalled = stalled + 1 if abs(delta) <= level * (1.0 + 1e-6) else 0
+        level = max(level, abs(delta))
+        if stalled > STALL:
             break
         yn = d[ext] - alt * delta / wt[ext]
         # weights of the first r nodes from those of all r + 1: w_i (x_i - x_r)
