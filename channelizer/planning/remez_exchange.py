@@ -36,7 +36,7 @@ MAX_ITERATIONS = 100
 CONVERGED = 1e-4
 #: Exchanges in a row that may fail to raise the levelled error by a millionth before
 #: the exchange stops.
-STALL = 6
+STALL = 15
 #: Up to this many coefficients, they come from a linear solve at the nodes.
 SOLVE_UP_TO = 700
 #: Grid points x nodes evaluated at once (bounds the memory of one step).
