@@ -338,7 +338,10 @@ def choose_cic_order(decimation, *, fs, fp, ds, differential_delay=1, max_order=
     """
     fo = fs / decimation
     g = _dense(-fp, fp, 33)
-    ks = np.arange(1, int(math.ceil((fs / 2.0 + fp) / fo)) + 1)
+    # |H_1(k fo + g)| = |sin(pi g / fo)| / (R M |sin(pi (k fo + g) / fs)|): the numerator
+    # is the same for every k and the denominator grows with k up to fs/2, so the first
+    # alias band (k = 1) holds the worst ratio of every band
+    ks = np.arange(1, 2)
     x = (ks[:, None] * fo + g[None, :]).ravel()
     keep = x <= fs / 2.0
     x, gl = x[keep], np.broadcast_to(g, (ks.size, g.size)).ravel()[keep]

@@ -103,12 +103,17 @@ def _exchange(err, ext):
     global extremum, E. Ya. Remez 1934, from memory).
     """
     pos = err >= 0
-    run = np.concatenate([[0], np.cumsum(pos[1:] != pos[:-1])])
+    change = np.flatnonzero(pos[1:] != pos[:-1]) + 1
+    run = np.zeros(err.size, dtype=np.int64)
+    run[change] = 1
+    run = np.cumsum(run)
     mag = np.abs(err)
-    # the index of the largest |err| in each run
-    order = np.lexsort((-mag, run))
-    first = order[np.concatenate([[True], run[order][1:] != run[order][:-1]])]
-    top = first[np.argsort(run[first])]
+    # the index of the largest |err| in each run: its first point reaching the run's maximum
+    starts = np.concatenate([[0], change])
+    peak = np.maximum.reduceat(mag, starts)
+    hits = np.flatnonzero(mag == peak[run])
+    _, first = np.unique(run[hits], return_index=True)
+    top = hits[first]
     new = top[run[ext]]
     g = int(np.argmax(mag))
     rg = run[g]
