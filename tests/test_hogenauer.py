@@ -88,7 +88,7 @@ def test_hogenauer_paper_example():
 # ----------------------------------------------------------------- formulas
 
 
-@pytest.mark.parametrize("order,decimation,delay", [(1, 4, 1), (2, 3, 1), (3, 8, 1), (3, 4, 2), (4, 5, 1), (2, 2, 3)])
+@pytest.mark.parametrize("order,decimation,delay", [(1, 4, 1), (2, 3, 1), (3, 8, 1), (3, 4, 2), (4, 5, 1), (2, 2, 3), (7, 24, 1)])
 def test_variance_terms_match_simulated_impulse_responses(order, decimation, delay):
     # Hogenauer 1981's closed form for h_j(k) against the structure itself.
     r = cic_registers(order, decimation, delay, input_bits=8, output_bits=8)
@@ -221,3 +221,14 @@ def test_bad_arguments_name_the_value(args, kwargs, needle):
     kw.update(kwargs)
     with pytest.raises(ChannelizerError, match=needle):
         cic_registers(*args, **kw)
+
+
+@pytest.mark.parametrize("order,rm", [(5, 40), (7, 1024), (10, 3000), (10, 2)])
+def test_fast_variance_terms_equal_the_binomial_sums(order, rm):
+    # Hogenauer 1981's closed form h_j(k) = sum_l (-1)^l C(N, l) C(N - j + k - RM l, k - RM l),
+    # summed in exact Python integers, against the running sums joined by the Chinese
+    # remainder theorem that the planner uses (exact integers both, so equal)
+    from channelizer.planning.hogenauer import _variance_terms, _variance_terms_direct
+
+    assert _variance_terms(order, rm) == _variance_terms_direct(order, rm)
+

@@ -320,3 +320,15 @@ def test_stopband_edge_must_sit_between_passband_and_output_nyquist():
         ChainSpec(input_rate=2.4e6, bandwidth=11e3, output_rate=48e3, stopband_edge=5e3)
     with pytest.raises(ChannelizerError, match="below half the output rate"):
         ChainSpec(input_rate=2.4e6, bandwidth=11e3, output_rate=48e3, stopband_edge=30e3)
+
+
+def test_budget_refusal_names_the_limit(monkeypatch):
+    # the planner answers any spec within its CPU budget or refuses with one line that
+    # names the budget; a tiny budget makes any design refuse
+    from channelizer.planning import limits
+
+    assert limits.CPU_BUDGET_S == 10.0
+    monkeypatch.setattr(limits, "CPU_BUDGET_S", 1e-6)
+    with pytest.raises(ChannelizerError, match=r"within the planner's 1e-06 s budget"):
+        plan_chain(ChainSpec(input_rate=40e6, bandwidth=1e3, rejection_db=120))
+

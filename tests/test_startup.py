@@ -13,7 +13,7 @@ import sys
 import pytest
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-HEAVY = ("numpy", "scipy", "scipy.signal", "scipy.stats", "matplotlib", "yaml", "dask", "distributed")
+HEAVY = ("numpy", "scipy", "scipy.signal", "scipy.stats", "scipy.optimize", "matplotlib", "yaml", "dask", "distributed")
 
 _PROBE = """
 import contextlib, io, json, sys
@@ -67,15 +67,35 @@ def test_plan_without_plot_skips_matplotlib():
     assert not got["heavy"]["matplotlib"] and not got["heavy"]["dask"]
 
 
-def test_fir_response_is_freqz_bit_for_bit():
-    # scipy.signal.freqz at an array of frequencies (the reference) against our numpy copy
+@pytest.mark.parametrize("argv", [
+    ["--rate", "2.4M", "--bandwidth", "10k"],
+    ["--rate", "61.44M", "--bandwidth", "200k"],
+    ["--rate", "1.024M", "--bandwidth", "100k", "--rejection-db", "60", "--ripple-db", "0.5"],
+    ["--rate", "2.4M", "--bandwidth", "15k", "--output-rate", "44.1k"],
+])
+def test_plan_designs_without_scipy_signal_or_optimize(argv):
+    # the planner's filter design runs on numpy alone (Remez exchange, Kaiser formulas,
+    # the compensator's fit): a plan command never pays for importing these
+    got = _loaded("plan", *argv)
+    assert got["status"] == 0
+    assert not got["heavy"]["scipy.signal"] and not got["heavy"]["scipy.optimize"], got["heavy"]
+
+
+def test_fir_response_matches_freqz():
+    # scipy.signal.freqz at an array of frequencies (the reference) against our numpy
+    # evaluation, on both of its paths (few and many frequencies per tap); the bound is
+    # float64 rounding of a sum of n terms, relative to sum |h| (common practice)
     import numpy as np
     import scipy.signal
 
     from channelizer.planning.stages import fir_response
 
     rng = np.random.default_rng(5)
-    h = rng.standard_normal(97)
-    for f in (np.array([1234.5]), rng.uniform(-3e7, 3e7, 3), rng.uniform(-3e7, 3e7, 4097)):
-        _, ref = scipy.signal.freqz(h, worN=f, fs=61.44e6)
-        assert np.array_equal(fir_response(h, f, fs=61.44e6), ref)
+    for n in (1, 2, 5, 97, 1000, 4001):
+        h = rng.standard_normal(n)
+        for f in (np.array([1234.5]), rng.uniform(-3e7, 3e7, 3), rng.uniform(-3e7, 3e7, 4097)):
+            _, ref = scipy.signal.freqz(h, worN=f, fs=61.44e6)
+            got = fir_response(h, f, fs=61.44e6)
+            assert got.shape == f.shape
+            assert np.max(np.abs(got - ref)) <= 1e-12 * np.sum(np.abs(h)), (n, f.size)
+    assert fir_response([0.25, 0.5, 0.25], 0.0, fs=1.0).shape == ()

@@ -5,22 +5,23 @@ bands ``k fo +- fp`` (k >= 1), which fold onto the final passband ``[0, fp]``
 at its output; everything else is left free ("don't care").  Later stages
 remove what lands elsewhere (Crochiere & Rabiner, Proc. IEEE 69(3), 1981).
 Half-bands use the Vaidyanathan & Nguyen (1987) construction; FIRs are
-equiripple (Parks-McClellan through ``scipy.signal.remez``); the CIC
-compensator is a minimax fit to ``1/|H_cic|`` by Lawson's iteratively
-reweighted least squares.
+equiripple (Parks-McClellan, :mod:`.remez_exchange`); the CIC compensator is a
+minimax fit to ``1/|H_cic|`` (the same exchange, or a linear programme where a
+cap on the don't-care bands binds, :mod:`.minimax`).  numpy alone: importing
+scipy.signal would cost every ``plan`` command about a second.
 """
 
 import functools
 import math
-import warnings
 
 import numpy as np
-import scipy.signal
 
 from ..errors import ChannelizerError
 from ..units import format_hz
 from .limits import check_time
-from .minimax import lawson_fit, minimax_fit
+from .kaiser import kaiser_beta, kaiser_length, kaiser_lowpass
+from .minimax import minimax_fit
+from .remez_exchange import equiripple_fit, remez_bands
 from .stages import CicStage, fir_response
 
 __all__ = [
@@ -35,8 +36,8 @@ __all__ = [
 ]
 
 MAX_TAPS = 4001
-#: Longest compensator shortened by the exact (linear-programming) fit; longer ones
-#: keep the near-minimax fit, where a tap or two matters less.
+#: Longest compensator whose length the capped fit (:func:`minimax.minimax_fit`) tries
+#: to shorten by a few taps; longer ones keep the uncapped fit's length.
 MAX_LP_TAPS = 100
 
 
@@ -75,6 +76,15 @@ class FirDesign:
 
 def _dense(lo, hi, n):
     return np.linspace(lo, hi, max(int(n), 8))
+
+
+def _band_grid(lo, hi, *, fs, lattice, least):
+    """``[lo, hi]``: its edges and the points ``k fs / (2 lattice)`` between them (runs
+    the exchange evaluates by FFT), or ``least`` evenly spaced points."""
+    step = fs / (2.0 * lattice)
+    k = np.arange(int(np.floor(lo / step)) + 1, int(np.ceil(hi / step)))
+    g = np.concatenate([[lo], k * step, [hi]])
+    return g if g.size >= least else _dense(lo, hi, least)
 
 
 def _check(taps, *, fs, fp, stopbands, dp, ds, target=None, gain=1.0, shaping=None):
@@ -132,18 +142,13 @@ def _remez(numtaps, fp, stopbands, fs, dp, ds, gain):
         edges += [lo, hi]
         desired.append(0.0)
         weight.append(dp / ds)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        try:
-            h = scipy.signal.remez(numtaps, edges, desired, weight=weight, fs=fs, maxiter=200)
-        except ValueError:
-            h = np.full(numtaps, np.nan)
+    h = remez_bands(numtaps, edges, desired, weight=weight, fs=fs)
     if not np.all(np.isfinite(h)):
         # Parks-McClellan breaks down on very narrow bands; a Kaiser-window design
-        # (Kaiser 1974; scipy.signal.firwin) with the cutoff mid-transition serves instead.
-        beta = scipy.signal.kaiser_beta(-20.0 * math.log10(min(dp, ds)))
+        # (Kaiser 1974) with the cutoff mid-transition serves instead.
+        beta = kaiser_beta(-20.0 * math.log10(min(dp, ds)))
         cutoff = 0.5 * (fp + stopbands[0][0])
-        h = gain * scipy.signal.firwin(numtaps, cutoff, window=("kaiser", beta), fs=fs)
+        h = gain * kaiser_lowpass(numtaps, cutoff, beta=beta, fs=fs)
     return h
 
 
@@ -257,15 +262,15 @@ def design_decimator(fp, decimation, *, fs, dp, ds, gain=1.0, full_stopband=Fals
 
 @functools.lru_cache(maxsize=128)
 def design_kaiser(fp, stop, *, fs, delta, gain=1.0):
-    """Kaiser-window low-pass (scipy.signal.kaiserord / firwin): passband ``[0, fp]``,
+    """Kaiser-window low-pass (:mod:`.kaiser`): passband ``[0, fp]``,
     stopband from ``stop``, deviation ``delta`` on both, passband gain ``gain``.
 
     For the long filters of a rational stage with a large ``L``, where Parks-McClellan
     is slow and unreliable; the length follows Kaiser's formula (Kaiser 1974).
     """
     atten = -20.0 * math.log10(delta)
-    numtaps, beta = scipy.signal.kaiserord(atten, (stop - fp) / (fs / 2.0))
-    h = scipy.signal.firwin(numtaps, 0.5 * (fp + stop), window=("kaiser", beta), fs=fs)
+    numtaps, beta = kaiser_length(atten, stop - fp, fs=fs)
+    h = kaiser_lowpass(numtaps, 0.5 * (fp + stop), beta=beta, fs=fs)
     return FirDesign(gain * h / h.sum(), 0.0, 0.0)
 
 
@@ -293,12 +298,7 @@ def design_halfband(fp, *, fs, delta):
         k = (n4 + 1) // 4
         if k < 1:
             k = 1
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            try:
-                g = scipy.signal.remez(2 * k, [0.0, 2.0 * fpn], [1.0], fs=1.0, maxiter=200)
-            except ValueError:
-                g = np.full(2 * k, np.nan)
+        g = remez_bands(2 * k, [0.0, 2.0 * fpn], [1.0], fs=1.0)
         if np.all(np.isfinite(g)):
             h = np.zeros(4 * k - 1)
             h[0::2] = g / 2.0
@@ -306,7 +306,7 @@ def design_halfband(fp, *, fs, delta):
         else:
             # Narrow passbands defeat Parks-McClellan; a Kaiser-windowed ideal half-band
             # 0.5 sinc(n/2) w[n] keeps the centre tap 0.5 and the zeros exact.
-            beta = scipy.signal.kaiser_beta(-20.0 * math.log10(delta))
+            beta = kaiser_beta(-20.0 * math.log10(delta))
             n = np.arange(4 * k - 1) - (2 * k - 1)
             h = 0.5 * np.sinc(n / 2.0) * np.kaiser(4 * k - 1, beta)
         return _check(h, fs=fs, fp=fp, stopbands=stop, dp=delta, ds=delta) + (h,)
@@ -338,16 +338,22 @@ def choose_cic_order(decimation, *, fs, fp, ds, differential_delay=1, max_order=
     """
     fo = fs / decimation
     g = _dense(-fp, fp, 33)
-    ks = np.arange(1, int(math.ceil((fs / 2.0 + fp) / fo)) + 1)
+    # |H_1(k fo + g)| = |sin(pi g / fo)| / (R M |sin(pi (k fo + g) / fs)|): the numerator
+    # is the same for every k and the denominator grows with k up to fs/2, so the first
+    # alias band (k = 1) holds the worst ratio of every band
+    ks = np.arange(1, 2)
     x = (ks[:, None] * fo + g[None, :]).ravel()
     keep = x <= fs / 2.0
     x, gl = x[keep], np.broadcast_to(g, (ks.size, g.size)).ravel()[keep]
+    # |H_N| = |H_1|^N (Hogenauer 1981): the worst ratio of order N is that of order 1
+    # to the N-th power, so one evaluation serves every order
+    st = CicStage(decimation=decimation, order=1, differential_delay=differential_delay)
+    att = np.abs(st.response(x, fs=fs))
+    if compensated:
+        att = att / np.abs(st.response(gl, fs=fs))
+    worst = float(np.max(att))
     for order in range(max(1, min_order), max_order + 1):
-        st = CicStage(decimation=decimation, order=order, differential_delay=differential_delay)
-        att = np.abs(st.response(x, fs=fs))
-        if compensated:
-            att = att / np.abs(st.response(gl, fs=fs))
-        if float(np.max(att)) <= ds:
+        if worst**order <= ds:
             return order
     return None
 
@@ -357,8 +363,8 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=
                        gain=1.0, fold_rate=None):
     """FIR whose passband is ``gain / |H_cic|`` on ``[0, fp]``: it undoes the CIC's droop.
 
-    A true minimax fit (linear programming, :func:`minimax.minimax_fit`) of a symmetric
-    FIR of any length running at ``fs`` (default: the CIC's output rate).  Its
+    A true minimax fit (:func:`minimax.minimax_fit`: the Remez exchange, or a linear
+    programme where a cap binds) of a symmetric FIR of any length running at ``fs`` (default: the CIC's output rate).  Its
     stopbands are the alias bands of its own decimation (or everything from
     ``stop_edge`` to ``fs/2``, a final stage that also removes the neighbours).  A
     stage that does not decimate has no stopband: it only may not amplify, i.e. the
@@ -398,10 +404,10 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=
         return np.abs(cic.response(g, fs=fs_cic))
 
     def make(n, fast=False):
-        per_hz = 12.0 * n / fs  # grid density: 12 points per cycle of the ripple (remez uses 16)
-        f_pb = _dense(0.0, fp, 16 + per_hz * fp)
+        lattice = 16 * n  # grid: 32 points per cycle of the ripple (the exchange's FFT makes density cheap)
+        f_pb = _band_grid(0.0, fp, fs=fs, lattice=lattice, least=16)
         t_pb = target(f_pb)
-        f_sb = np.concatenate([_dense(lo, hi, 8 + per_hz * (hi - lo)) for lo, hi in stop]) if stop else np.zeros(0)
+        f_sb = np.concatenate([_band_grid(lo, hi, fs=fs, lattice=lattice, least=8) for lo, hi in stop]) if stop else np.zeros(0)
         f = np.concatenate([f_pb, f_sb])
         want = np.concatenate([gain * t_pb, np.zeros(f_sb.size)])
         # the CIC before already attenuates the stopband: only the product must reach ds
@@ -416,16 +422,16 @@ def design_compensator(cic, fp, decimation, *, fs_cic, dp, ds, fs=None, protect=
         cap = gain * (1.0 + dp) / np.maximum(shaping(cap_f), 1e-3)
         check_time()  # the planner's CPU-time budget (planning/limits.py)
         if fast:
-            h, err = lawson_fit(n, fs=fs, f=f, desired=want, weight=weight)
+            h, err = equiripple_fit(n, fs=fs, f=f, desired=want, weight=weight, lattice=lattice)
         else:
-            h, err = minimax_fit(n, fs=fs, f=f, desired=want, weight=weight, cap_f=cap_f, cap=cap)
-        if h is None or err > 1.0:
+            h, err = minimax_fit(n, fs=fs, f=f, desired=want, weight=weight, cap_f=cap_f, cap=cap, lattice=lattice)
+        if h is None or not np.all(np.isfinite(h)) or err > 1.0:
             return False, math.inf, math.inf, h
         return _check(h, fs=fs, fp=fp, stopbands=stop, dp=dp, ds=ds, target=target, shaping=shaping, gain=gain) + (h,)
 
     est = herrmann_length(dp, ds, (stop[0][0] - fp) / fs) if stop else 3
     if stop:
-        # bracket with the fast near-minimax fit, then shorten with the exact one
+        # bracket with the exchange's fit (no caps), then shorten with the capped one
         n, res = _search_length(lambda m: make(m, fast=True), est, step_limit=30, even=True)
         if n is None:
             n, res = _search_length(make, est, step_limit=30, even=True)

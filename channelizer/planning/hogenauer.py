@@ -109,8 +109,66 @@ def _ceil_log2(n):
     return (n - 1).bit_length()
 
 
+#: Primes below 2**31: sums of squares are formed modulo each in int64 and joined by
+#: the Chinese remainder theorem.
+_PRIMES = (2147483647, 2147483629, 2147483587, 2147483579, 2147483563, 2147483549, 2147483543,
+           2147483497, 2147483489, 2147483477, 2147483423, 2147483399, 2147483353, 2147483323,
+           2147483269, 2147483249)
+
+
 @functools.lru_cache(maxsize=64)
 def _variance_terms(order, rm):
+    """``F_j^2`` for ``j = 1..2N+1``; depends on ``N`` and ``R M`` only.
+
+    The integrator terms in exact integers without Python-level loops over the
+    impulse response: ``h_N = boxcar(RM) (1 - z^{-RM})^{N-1}`` is ``(-1)^l C(N-1, l)``
+    on the l-th block of ``RM`` samples, and ``h_j`` is the running sum of ``h_{j+1}``
+    (one integrator more).  Each ``sum h_j^2`` is formed modulo primes below 2**31
+    in int64 and rebuilt by the Chinese remainder theorem, with as many primes as a
+    float64 estimate of its size asks for; the result is checked against that
+    estimate, and :func:`_variance_terms_direct` (the paper's binomial sums) answers
+    where the check fails.
+    """
+    n = order
+    base = np.repeat(np.array([(-1) ** l * math.comb(n - 1, l) for l in range(n)]), rm)
+    approx = []
+    h = base.astype(float)
+    for _ in range(n):  # j = N .. 1
+        approx.append(float(np.dot(h, h)))
+        h = np.cumsum(h)[:-1]
+    approx = approx[::-1]
+    if not all(math.isfinite(a) and a > 0 for a in approx):
+        return _variance_terms_direct(order, rm)
+    need = max(int(math.log2(max(approx))) + 12, 31)
+    primes = _PRIMES[: -(-need // 30)]
+    if len(primes) * 30 < need:
+        return _variance_terms_direct(order, rm)
+    residues = []
+    for p in primes:
+        h = base % p
+        row = []
+        for _ in range(n):
+            row.append(int(np.sum(h * h % p) % p))
+            h = np.cumsum(h)[:-1] % p
+        residues.append(row[::-1])
+    modulus = math.prod(primes)
+    terms = []
+    for j in range(n):
+        x = 0
+        for p, row in zip(primes, residues):
+            q = modulus // p
+            x += row[j] * q * pow(q, -1, p)
+        x %= modulus
+        if abs(x - approx[j]) > 1e-6 * approx[j]:
+            return _variance_terms_direct(order, rm)
+        terms.append(x)
+    for j in range(n + 1, 2 * n + 1):
+        terms.append(math.comb(2 * (2 * n + 1 - j), 2 * n + 1 - j))  # sum_k C(m, k)^2 = C(2m, m)
+    terms.append(1)
+    return tuple(terms)
+
+
+def _variance_terms_direct(order, rm):
     """``F_j^2`` for ``j = 1..2N+1``; depends on ``N`` and ``R M`` only.
 
     Integrators (Hogenauer 1981, impulse response from source j to the output):

@@ -30,7 +30,7 @@ __all__ = ["check_spec_limits", "check_time", "planning_budget", "MIN_HZ", "MAX_
 MAX_RATIO = 5e4
 MIN_RIPPLE_DB = 1e-4
 MAX_REJECTION_DB = 150.0
-CPU_BUDGET_S = 20.0
+CPU_BUDGET_S = 10.0
 
 _deadline = contextvars.ContextVar("channelizer_planning_deadline", default=None)
 

@@ -1,6 +1,10 @@
-"""Minimax fit of a linear-phase FIR to an arbitrary passband shape, by linear programming.
+"""Minimax fit of a linear-phase FIR to an arbitrary passband shape, with caps.
 
-The amplitude of a symmetric FIR of length ``n`` is linear in its free coefficients:
+Without caps the fit is the Remez exchange's (:mod:`.remez_exchange`).  With caps
+``|A(f)| <= u(f)`` on further points (a stage that must "never amplify"), the
+exchange's fit is the answer whenever it keeps under them (it is the best fit of
+the larger problem, so also of this one); otherwise the problem is solved as a
+linear programme.  The amplitude of a symmetric FIR of length ``n`` is linear in its free coefficients:
 ``A(f) = sum_k a_k c_k(f)`` with ``c_k = cos(2 pi f k / fs)`` (odd ``n``, type I) or
 ``cos(2 pi f (k + 1/2) / fs)`` (even ``n``, type II).  Minimising the largest weighted
 error over a dense grid is then a linear programme (minimise ``t`` subject to
@@ -15,10 +19,14 @@ filters", IEEE Trans. Audio Electroacoust. 20(4):280-288, 1972 (from memory).
 """
 
 import numpy as np
-import scipy.optimize
-from scipy import sparse
 
-__all__ = ["linear_phase_basis", "taps_from_amplitude", "minimax_fit", "lawson_fit"]
+from .remez_exchange import equiripple_fit
+from .stages import fir_response
+
+__all__ = ["linear_phase_basis", "taps_from_amplitude", "minimax_fit", "CAP_SLACK"]
+
+#: A cap counts as kept when the exchange's fit exceeds it by at most this fraction.
+CAP_SLACK = 1e-9
 
 
 def linear_phase_basis(n, f, *, fs):
@@ -44,6 +52,11 @@ def taps_from_amplitude(n, a):
 
 
 def _solve(b, w, d, bc, u):
+    # imported here: the exchange serves most fits, and scipy.optimize costs a
+    # command a few tenths of a second to import
+    import scipy.optimize
+    from scipy import sparse
+
     m = b.shape[1]
     bw = b * w[:, None]
     dw = d * w
@@ -63,7 +76,7 @@ def _solve(b, w, d, bc, u):
     return res.x[:m] if res.status == 0 else None
 
 
-def minimax_fit(n, *, fs, f, desired, weight, cap_f=None, cap=None):
+def minimax_fit(n, *, fs, f, desired, weight, cap_f=None, cap=None, lattice=None):
     """Symmetric length-``n`` FIR minimising ``max |weight (A - desired)|`` over ``f``.
 
     Parameters
@@ -76,6 +89,8 @@ def minimax_fit(n, *, fs, f, desired, weight, cap_f=None, cap=None):
         Grid (Hz), the amplitude wanted there and the weight of its error.
     cap_f, cap : array_like, optional
         Further points where ``|A|`` must not exceed ``cap`` (a hard constraint).
+    lattice : int, optional
+        Passed to :func:`.remez_exchange.equiripple_fit`.
 
     Returns
     -------
@@ -83,35 +98,19 @@ def minimax_fit(n, *, fs, f, desired, weight, cap_f=None, cap=None):
         The taps and the largest weighted error; ``(None, inf)`` when the
         programme has no solution.
     """
+    has_cap = cap_f is not None and len(cap_f)
+    h, err = equiripple_fit(n, fs=fs, f=f, desired=desired, weight=weight, lattice=lattice)
+    if np.all(np.isfinite(h)):
+        if not has_cap:
+            return h, err
+        u = np.asarray(cap, dtype=float)
+        if np.all(np.abs(fir_response(h, cap_f, fs=fs)) <= u * (1.0 + CAP_SLACK)):
+            return h, err
     b = linear_phase_basis(n, f, fs=fs)
     d = np.asarray(desired, dtype=float)
-    has_cap = cap_f is not None and len(cap_f)
     bc = linear_phase_basis(n, cap_f, fs=fs) if has_cap else None
     u = np.asarray(cap, dtype=float) if has_cap else None
     a = _solve(b, np.asarray(weight, dtype=float), d, bc, u)
     if a is None:
         return None, np.inf
     return taps_from_amplitude(n, a), float(np.max(np.abs(b @ a - d) * weight))
-
-
-def lawson_fit(n, *, fs, f, desired, weight, iterations=12):
-    """Near-minimax fit by Lawson's iteratively reweighted least squares: fast, for searching.
-
-    Same problem as :func:`minimax_fit` without caps; returns the taps and the largest
-    weighted error.  (C. L. Lawson, Ph.D. thesis, UCLA, 1961, from memory.)
-    """
-    basis = linear_phase_basis(n, f, fs=fs)
-    t = np.asarray(desired, dtype=float)
-    w0 = np.asarray(weight, dtype=float)
-    w = np.ones_like(t)
-    a = None
-    for _ in range(iterations):
-        ww = w * w0**2
-        gram = (basis * ww[:, None]).T @ basis
-        try:
-            a = np.linalg.solve(gram, (basis * ww[:, None]).T @ t)
-        except np.linalg.LinAlgError:
-            a = np.linalg.lstsq(basis * np.sqrt(ww)[:, None], t * np.sqrt(ww), rcond=None)[0]
-        e = np.abs(basis @ a - t) * w0
-        w = np.maximum(w * e / max(float((w * e).sum()), 1e-300), 1e-12)
-    return taps_from_amplitude(n, a), float(np.max(np.abs(basis @ a - t) * w0))

@@ -18,7 +18,6 @@ interpolation", IEEE Trans. ASSP 29(2):155-162, 1981.
 """
 
 from dataclasses import dataclass, field, replace
-from fractions import Fraction
 import math
 
 import numpy as np
@@ -30,28 +29,20 @@ from .layouts import carrier, describe, has_final, layouts, ripple_shares, stage
 from ..errors import ChannelizerError
 from ..units import format_hz
 from .hogenauer import planned_cic
+from .output_rates import MIN_OVERSAMPLING, default_decimation, targets as _targets
 from .limits import check_time, planning_budget
 from .quantize import quantize_taps
 from .plan import Plan
-from .response import fold, predict
+from .response import fold, path_of, predict
 from .spec import ChainSpec, ripple_to_delta
 from .stages import CicStage, FirStage, ResamplerStage, chain_rates
 
 __all__ = ["plan_chain", "plan_layout", "PlanResult", "Candidate", "MIN_OVERSAMPLING", "default_decimation"]
 
-#: Without an output rate, the planner picks the largest integer decimation whose
-#: output rate is at least this multiple of the channel bandwidth: the transition band
-#: from bw/2 to fs_out - bw/2 is then at least 25 % of the bandwidth wide.
-MIN_OVERSAMPLING = 1.25
 MAX_DESIGNED = 8
-MAX_INTERPOLATION = 256
-#: An output rate that is no fraction with a small enough L is met within this.
-RATE_TOLERANCE = 1e-6
 #: Largest L whose filter is designed by Parks-McClellan or linear programming;
 #: beyond, a Kaiser window.
 MAX_DESIGNED_L = 16
-#: A rational stage decimates by at most this many times its L.
-MAX_RATIONAL_DECIMATION = 8
 #: Rejection margin of hardware plans, for the bit-true chain's rounding (dB).
 HARDWARE_MARGIN_DB = 0.5
 MAX_CIC_ORDER = 10
@@ -65,6 +56,10 @@ PRUNE = 1.3
 #: Points per alias band while searching (the chosen chain is checked with the default).
 SEARCH_POINTS = 8
 SEARCH_REFINE = 401
+#: A stage short of rejection is tightened by the shortfall and this margin (dB) in
+#: the search, and by the smaller one when a chain is designed again at full resolution.
+SEARCH_MARGIN_DB = 1.0
+FULL_MARGIN_DB = 0.2
 
 
 @dataclass
@@ -78,6 +73,10 @@ class Candidate:
     cost: object = None
     reason: str = ""
     meets: bool = False
+    #: (layout, resampler, estimates) it was designed from, and whether its search
+    #: judged it on the full-resolution prediction
+    design: tuple = field(default=(), repr=False)
+    full: bool = field(default=False, repr=False)
 
 
 @dataclass
@@ -87,15 +86,6 @@ class PlanResult:
     plan: Plan
     chosen: Candidate
     alternatives: list = field(default_factory=list)
-
-
-def _exact_ratio(a, b):
-    return Fraction(repr(float(a))) / Fraction(repr(float(b)))
-
-
-def default_decimation(input_rate, bandwidth):
-    """Largest integer decimation leaving an output rate >= MIN_OVERSAMPLING x bandwidth."""
-    return max(1, int(math.floor(input_rate / (MIN_OVERSAMPLING * bandwidth) + 1e-9)))
 
 
 def _quantize(stage, bits):
@@ -214,73 +204,6 @@ def _build(layout, spec, resampler, shares, ds_mult, order_add=0):
     return tuple(stages), ""
 
 
-def _targets(spec):
-    """(d_int, resampler (L, M) or None, output rate) options, best first."""
-    fs = spec.input_rate
-    if spec.output_rate is None:
-        d = default_decimation(fs, spec.bandwidth)
-        if spec.stopband_edge is not None:
-            # the output band must reach beyond the stopband edge
-            d = min(d, int(math.ceil(fs / (2.0 * spec.stopband_edge))) - 1)
-            if d < 2 and default_decimation(fs, spec.bandwidth) >= 2:
-                raise ChannelizerError(
-                    f"stopband edge {format_hz(spec.stopband_edge)} needs an output rate above {format_hz(2 * spec.stopband_edge, 'sps')}, "
-                    f"which leaves no decimation of {format_hz(fs, 'sps')} by 2 or more; move the edge below {format_hz(fs / 4)} "
-                    "or give --output-rate"
-                )
-        if d < 2:
-            raise ChannelizerError(
-                f"bandwidth {format_hz(spec.bandwidth)} leaves no room to decimate {format_hz(fs, 'sps')} "
-                f"(the output must be at least {MIN_OVERSAMPLING} x the bandwidth); give --output-rate or a narrower channel"
-            )
-        return [(d, None, fs / d)]
-    ratio = _exact_ratio(fs, spec.output_rate)
-    if ratio.denominator == 1:
-        return [(int(ratio), None, spec.output_rate)]
-    options = []
-    for d_int in range(int(math.floor(ratio)), 0, -1):
-        lm = _nearest_fraction(Fraction(d_int) / ratio)  # = L / M, below 1
-        if lm is None:
-            continue
-        up, down = lm.numerator, lm.denominator
-        if down > MAX_RATIONAL_DECIMATION * up:
-            continue  # the integer stages should do the bulk of the decimation
-        options.append((up, -d_int, d_int, (up, down)))
-    if not options:
-        best = Fraction(int(math.floor(ratio))) / ratio
-        near = best.limit_denominator(MAX_INTERPOLATION * 2)
-        got = fs / int(math.floor(ratio)) * float(near)
-        raise ChannelizerError(
-            f"output rate {format_hz(spec.output_rate, 'sps', digits=12)} is no ratio x L/M with L <= {MAX_INTERPOLATION} within "
-            f"{RATE_TOLERANCE * 1e6:g} ppm; the nearest is {format_hz(got, 'sps', digits=12)} "
-            f"({(got / spec.output_rate - 1) * 1e6:+.2f} ppm): ask for that rate"
-        )
-    options.sort()
-    return [(d_int, lm, fs / d_int * lm[0] / lm[1]) for _, _, d_int, lm in options[:4]]
-
-
-def _nearest_fraction(x):
-    """``x`` itself when its numerator is at most MAX_INTERPOLATION, else the simplest
-    fraction within RATE_TOLERANCE of it (a convergent of its continued fraction,
-    the best approximations there are: Khinchin, *Continued Fractions*, 1964, from
-    memory); None when there is none with a small enough numerator."""
-    if x.numerator <= MAX_INTERPOLATION:
-        return x
-    a, b = x.numerator, x.denominator
-    h0, h1, k0, k1 = 0, 1, 1, 0
-    while b:
-        q = a // b
-        a, b = b, a - q * b
-        h0, h1 = h1, q * h1 + h0
-        k0, k1 = k1, q * k1 + k0
-        if h1 > MAX_INTERPOLATION:
-            return None
-        c = Fraction(h1, k1)
-        if c and abs(c / x - 1) <= RATE_TOLERANCE:
-            return c
-    return None
-
-
 def _role(stage):
     if isinstance(stage, ResamplerStage):
         return "res"
@@ -294,6 +217,8 @@ def _culprits(stages, x, spec):
     fs, ds = spec.input_rate, spec.stopband_delta
     rates = chain_rates(stages, fs=fs)
     out = set()
+    if path_of(stages, x, fs=fs, bandwidth=spec.bandwidth) > 0:
+        return {"res"}  # an image of the rational stage: only its filter rejects it
     if isinstance(stages[0], CicStage):
         g = fold(np.array([x]), rates[-1])
         ratio = abs(stages[0].response(np.array([x]), fs=fs)[0]) / max(abs(stages[0].response(g, fs=fs)[0]), 1e-300)
@@ -307,8 +232,14 @@ def _culprits(stages, x, spec):
     return out or {_role(st) for st in stages if not isinstance(st, CicStage)}
 
 
-def _design_candidate(cand, layout, resampler, est, spec):
-    """Design one layout, raising only what fails; fills ``cand`` in."""
+def _design_candidate(cand, layout, resampler, est, spec, *, full=False):
+    """Design one layout, raising only what fails; fills ``cand`` in.
+
+    Each try is judged on the coarse prediction of the search, or with ``full`` on
+    the full one the chosen chain is checked with.
+    """
+    sampling = {} if full else {"points_per_band": SEARCH_POINTS, "refine_points": SEARCH_REFINE}
+    margin = FULL_MARGIN_DB if full else SEARCH_MARGIN_DB
     fs = spec.input_rate
     dp, ds = spec.passband_delta, spec.stopband_delta
     shares = ripple_shares(est, dp, ds)
@@ -318,8 +249,7 @@ def _design_candidate(cand, layout, resampler, est, spec):
         stages, reason = _build(layout, spec, resampler, shares, ds_mult, order_add)
         if stages is None:
             break
-        pred = predict(stages, fs=fs, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge,
-                       points_per_band=SEARCH_POINTS, refine_points=SEARCH_REFINE)
+        pred = predict(stages, fs=fs, bandwidth=spec.bandwidth, stopband_edge=spec.stopband_edge, **sampling)
         reason = _shortfall(pred, spec)
         if not reason:
             break
@@ -333,11 +263,11 @@ def _design_candidate(cand, layout, resampler, est, spec):
                 if role == "cic":
                     order_add += 1
                 else:
-                    ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + 1.0) / 20)
+                    ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + margin) / 20)
         if pred.adjacent_rejection_db is not None and pred.adjacent_rejection_db < need:
             short = need - pred.adjacent_rejection_db
             role = _role(stages[-1])
-            ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + 1.0) / 20)
+            ds_mult[role] = ds_mult.get(role, 1.0) * 10 ** (-(short + margin) / 20)
     cand.stages = stages or ()
     if stages:
         cand.prediction = pred
@@ -347,6 +277,7 @@ def _design_candidate(cand, layout, resampler, est, spec):
         )
     cand.reason = reason
     cand.meets = bool(stages) and not reason
+    cand.design, cand.full = (layout, resampler, est), full
     return cand
 
 
@@ -474,9 +405,16 @@ def plan_chain(spec):
     # the search sampled each alias band coarsely: the chosen chain is checked in full
     while True:
         best = good[0]
-        best.prediction = predict(best.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
-                                  stopband_edge=spec.stopband_edge)
-        best.reason = _shortfall(best.prediction, spec)
+        if not best.full:
+            best.prediction = predict(best.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
+                                      stopband_edge=spec.stopband_edge)
+            best.reason = _shortfall(best.prediction, spec)
+            if best.reason:
+                # short at full resolution only: design it again, judged at full resolution
+                again = _design_candidate(Candidate(best.layout, best.estimate), *best.design, spec, full=True)
+                if again.meets:
+                    good = sorted([again] + good[1:], key=lambda c: c.cost.key())
+                    continue
         if not best.reason or len(good) == 1:
             break
         best.meets = False
@@ -611,6 +549,8 @@ def plan_layout(spec, layout, resampler=None):
         cand.prediction = predict(cand.stages, fs=spec.input_rate, bandwidth=spec.bandwidth,
                                   stopband_edge=spec.stopband_edge)
         cand.reason = _shortfall(cand.prediction, spec)
+        if cand.reason:  # short at full resolution only: design it again, judged there
+            cand = _design_candidate(Candidate(cand.layout, cand.estimate), layout, resampler, est, spec, full=True)
     if cand.reason:
         raise ChannelizerError(f"layout {cand.layout} does not meet the spec: {cand.reason}")
     return PlanResult(_to_plan(cand, spec), cand, [])

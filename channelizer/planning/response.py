@@ -94,26 +94,33 @@ def image_step(stages, *, fs):
     return rate if res is not None else 0.0
 
 
-def _intervals(stages, fs, bands, *, skip_direct):
-    """Input intervals whose image paths land in any of ``bands`` (output-band offsets)."""
+def _interval_arrays(stages, fs, bands, *, skip_direct):
+    """Per image path ``k``: arrays (lo, hi) of the input intervals whose path ``k``
+    lands in any of ``bands`` (output-band offsets), in the order of :func:`_intervals`."""
     fs_out = chain_rates(stages, fs=fs)[-1]
     res, fs_r = resampler_of(stages, fs=fs)
     n_images = res.interpolation if res is not None else 1
     reach = max(abs(e) for band in bands for e in band)
+    edges = np.array(bands, dtype=float)
     out = []
     for k in range(n_images):
         offset = k * fs_r
         j_lo = int(np.floor((-fs / 2.0 + offset - reach) / fs_out))
         j_hi = int(np.ceil((fs / 2.0 + offset + reach) / fs_out))
-        for j in range(j_lo, j_hi + 1):
-            if skip_direct and k == 0 and j == 0:
-                continue
-            for a, b in bands:
-                lo = max(j * fs_out - offset + a, -fs / 2.0)
-                hi = min(j * fs_out - offset + b, fs / 2.0)
-                if lo < hi:
-                    out.append((lo, hi, k))
+        centre = np.arange(j_lo, j_hi + 1)[:, None] * fs_out - offset  # (j, band)
+        lo = np.maximum(centre + edges[:, 0], -fs / 2.0)
+        hi = np.minimum(centre + edges[:, 1], fs / 2.0)
+        keep = lo < hi
+        if skip_direct and k == 0:
+            keep[-j_lo, :] = False  # j = 0 on the direct path: the passband itself
+        out.append((k, lo[keep], hi[keep]))
     return out
+
+
+def _intervals(stages, fs, bands, *, skip_direct):
+    """Input intervals whose image paths land in any of ``bands`` (output-band offsets)."""
+    return [(a, b, k) for k, lo, hi in _interval_arrays(stages, fs, bands, skip_direct=skip_direct)
+            for a, b in zip(lo.tolist(), hi.tolist())]
 
 
 def alias_intervals(stages, *, fs, bandwidth):
@@ -194,30 +201,42 @@ def _grid(lo, hi, n):
     return np.linspace(lo, hi, n)
 
 
-def _worst(stages, intervals, fs, dc, points_per_band, refine=4, refine_points=2001):
-    """Smallest attenuation over ``intervals``: a coarse pass over every band, then a
-    dense pass over the ``refine`` worst bands of each image path (with many image
-    paths, over the ``refine`` x 4 worst bands of all paths together)."""
-    by_image = {}
-    for lo, hi, k in intervals:
-        by_image.setdefault(k, []).append((lo, hi))
+def _magnitude(stages, f, *, fs, image):
+    """``|normalised_response|`` from each stage's magnitude (no phases formed)."""
+    f = np.asarray(f, dtype=float)
+    rates = chain_rates(stages, fs=fs)
+    res, _ = resampler_of(stages, fs=fs)
+    mag = np.full(f.shape, 1.0 / (res.interpolation if res is not None else 1))
+    shift = 0.0
+    for st, rate in zip(stages, rates):
+        if isinstance(st, ResamplerStage):
+            shift = image * rate
+        mag = mag * (st.magnitude(f + shift, fs=rate) if hasattr(st, "magnitude") else np.abs(st.response(f + shift, fs=rate)))
+    return mag
+
+
+def _worst(stages, by_image, fs, dc, points_per_band, refine=4, refine_points=2001):
+    """Smallest attenuation over the intervals ``by_image`` (image, lo array, hi array):
+    a coarse pass over every band, then a dense pass over the ``refine`` worst bands of
+    each image path (with many image paths, over the ``refine`` x 4 worst bands of all
+    paths together)."""
     coarse = []  # (band minimum, image, band)
     worst_db, worst_f = np.inf, float("nan")
-    for k, bands in by_image.items():
-        edges = np.array(bands, dtype=float)
-        steps = np.linspace(0.0, 1.0, points_per_band)
-        f = (edges[:, :1] + (edges[:, 1:] - edges[:, :1]) * steps).ravel()
-        att = -20.0 * np.log10(np.maximum(np.abs(normalised_response(stages, f, fs=fs, image=k)), 1e-300) / dc)
-        per_band = att.reshape(len(bands), points_per_band).min(axis=1)
+    steps = np.linspace(0.0, 1.0, points_per_band)
+    paths = [(k, lo, hi) for k, lo, hi in by_image if lo.size]
+    for k, lo, hi in paths:
+        f = (lo[:, None] + (hi - lo)[:, None] * steps).ravel()
+        att = -20.0 * np.log10(np.maximum(_magnitude(stages, f, fs=fs, image=k), 1e-300) / dc)
+        per_band = att.reshape(lo.size, points_per_band).min(axis=1)
         i = int(np.argmin(att))
         if att[i] < worst_db:
             worst_db, worst_f = float(att[i]), float(f[i])
-        coarse += [(float(per_band[b]), k, bands[b]) for b in np.argsort(per_band)[:refine]]
-    if len(by_image) > refine:
+        coarse += [(float(per_band[b]), k, (float(lo[b]), float(hi[b]))) for b in np.argsort(per_band)[:refine]]
+    if len(paths) > refine:
         coarse = sorted(coarse, key=lambda t: t[0])[: 4 * refine]
     for _, k, (lo, hi) in coarse:
         fine = _grid(lo, hi, refine_points)
-        a = -20.0 * np.log10(np.maximum(np.abs(normalised_response(stages, fine, fs=fs, image=k)), 1e-300) / dc)
+        a = -20.0 * np.log10(np.maximum(_magnitude(stages, fine, fs=fs, image=k), 1e-300) / dc)
         i = int(np.argmin(a))
         if a[i] < worst_db:
             worst_db, worst_f = float(a[i]), float(fine[i])
@@ -238,12 +257,13 @@ def predict(stages, *, fs, bandwidth, stopband_edge=None, points_per_band=24, re
     pb = np.concatenate([-pb[::-1], pb])
     mag_pb = np.abs(normalised_response(stages, pb, fs=fs))
     ripple = 20.0 * np.log10(mag_pb.max() / mag_pb.min())
-    intervals = alias_intervals(stages, fs=fs, bandwidth=bandwidth)
+    intervals = _interval_arrays(stages, fs, [(-fp, fp)], skip_direct=True)  # alias_intervals, as arrays
     worst_db, worst_f = _worst(stages, intervals, fs, dc, points_per_band, refine_points=refine_points)
     adjacent = None
     if stopband_edge is not None:
         fs_out = chain_rates(stages, fs=fs)[-1]
-        land = landing_intervals(stages, fs=fs, lo=stopband_edge, hi=fs_out / 2.0)
+        lo, hi = stopband_edge, fs_out / 2.0
+        land = _interval_arrays(stages, fs, [(lo, hi), (-hi, -lo)], skip_direct=False)  # landing_intervals
         adjacent, _ = _worst(stages, land, fs, dc, points_per_band, refine_points=refine_points)
     return Prediction(
         passband_ripple_db=float(ripple),
