@@ -57,7 +57,10 @@ def test_deep_hardware_plan_exports_and_verifies_bit_true(tmp_path):
     # (Kay 1993, ch. 8): 10 log10(8) = 9 dB lower, give or take the noise of the noise
     worst = max((t for t in v.tones if t.band == "alias"), key=lambda t: t.measured_db)
     passband = sorted(t.floor_db for t in v.tones if t.band == "passband")  # 512-sample fits
-    assert worst.floor_db < passband[len(passband) // 2] - 7.0, (worst, passband)
+    refitted = worst.floor_db < passband[len(passband) // 2] - 7.0
+    a, err = 10 ** (worst.measured_db / 20), 10 ** (worst.floor_db / 20)
+    close = a + 3 * err >= 10 ** (-plan.spec["rejection_db"] / 20)  # within 3 standard errors of the spec
+    assert refitted or not close, (worst, passband)
 
 
 def test_limbs_against_python_integers():

@@ -71,7 +71,12 @@ def test_settling_length_is_where_a_step_reaches_its_final_value(plan_path):
     steady = reference_chain(plan, np.ones(20_000 + pre), 0.0, fs=FS)[pre // t.step.numerator * t.step.denominator :]
     n = min(len(y), len(steady))
     assert np.all(np.abs(y[t.settling : n] - steady[t.settling : n]) < 1e-9)
-    assert abs(y[t.settling - 1] - steady[t.settling - 1]) > 1e-12
+    # and the count is tight: the output before it still differs.  For a rational stage the
+    # count takes the longest polyphase branch, len(h) - 1 input samples at L times the rate;
+    # the branch an output actually uses may be shorter, so there it may be one output early
+    # (common practice: polyphase branch lengths differ by at most one tap).
+    slack = 2 if any(st.interpolation > 1 for st in plan.stages) else 1
+    assert max(abs(y[t.settling - k] - steady[t.settling - k]) for k in range(1, slack + 1)) > 1e-12
 
 
 def test_metadata_datetime_annotation_and_tone_phase(plan_path, capture, tmp_path):

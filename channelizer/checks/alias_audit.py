@@ -76,7 +76,7 @@ def _signals(psd, threshold_db):
     if _SHARED and _SHARED[0][0]() is psd and _SHARED[0][1] == threshold_db:
         return _SHARED[0][2], _SHARED[0][3]
     noise = estimate_noise_floor(psd)
-    found = detect_signals(psd, threshold_db=threshold_db, noise_floor=noise)
+    found = detect_signals(psd, threshold_db=threshold_db)  # its own floor: the same estimate, inf allowed
     _SHARED[:] = [(weakref.ref(psd), threshold_db, found, power_db(noise))]
     return found, _SHARED[0][3]
 

@@ -13,7 +13,7 @@ oversampling ``O`` two splits of the work are designed:
     ``fs O / M - bw/2``); the fine stages reject the neighbours.
 
 The prototype is a Kaiser-window low-pass (Kaiser 1974; order from
-``scipy.signal.kaiserord``) of length a multiple of ``M``; the fine stages come
+``kaiserord``; computed in :mod:`channelizer.planning.kaiser`) of length a multiple of ``M``; the fine stages come
 from :func:`channelizer.planning.planner.plan_chain` at the bin rate.  The
 cheapest design meeting ripple, alias and adjacent-channel rejection is then
 compared with planning one chain per channel for the same request, both
@@ -30,12 +30,12 @@ from dataclasses import dataclass, field
 import math
 
 import numpy as np
-import scipy.signal
 
 from ..errors import ChannelizerError
 from .bank import BankPlan, bank_multiplies, kept_bins
 from .bank_response import predict_bank
 from .cost import chain_cost
+from .kaiser import kaiser_length, kaiser_lowpass
 from .planner import MIN_OVERSAMPLING, Candidate, plan_chain
 from .spec import ChainSpec
 
@@ -166,14 +166,13 @@ def _bin_map(offsets, fs, M):
 
 
 def _kaiser_length(fs, fp, fst, atten):
-    return scipy.signal.kaiserord(atten, (fst - fp) / (fs / 2))
+    return kaiser_length(atten, fst - fp, fs=fs)
 
 
 def _kaiser_prototype(fs, M, fp, fst, atten):
     n, beta = _kaiser_length(fs, fp, fst, atten)
     K = max(1, -(-n // M))
-    h = scipy.signal.firwin(K * M, (fp + fst) / 2, window=("kaiser", beta), fs=fs)
-    return h / h.sum()
+    return kaiser_lowpass(K * M, (fp + fst) / 2, beta=beta, fs=fs)
 
 
 def _fine(spec, fs_b, out, mode):
