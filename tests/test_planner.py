@@ -327,8 +327,38 @@ def test_budget_refusal_names_the_limit(monkeypatch):
     # names the budget; a tiny budget makes any design refuse
     from channelizer.planning import limits
 
-    assert limits.CPU_BUDGET_S == 10.0
+    # the promise is an answer within 10 s of wall time: the budget leaves room for the
+    # interpreter's start-up and the design step in flight when it runs out
+    assert limits.CPU_BUDGET_S <= 8.0
     monkeypatch.setattr(limits, "CPU_BUDGET_S", 1e-6)
     with pytest.raises(ChannelizerError, match=r"within the planner's 1e-06 s budget"):
         plan_chain(ChainSpec(input_rate=40e6, bandwidth=1e3, rejection_db=120))
 
+
+
+def test_hint_for_cheaper_rates_never_costs_the_plan(monkeypatch):
+    # looking for a cheaper nearby output rate is a hint beside the plan: when its own
+    # small budget runs out, the plan found still stands (it used to spend the whole
+    # budget and refuse a spec it had planned)
+    from channelizer.planning import planner
+
+    spec = ChainSpec(input_rate=61.44e6, bandwidth=200e3)
+    full = plan_chain(spec)
+    assert any("@" in c.layout for c in full.alternatives)  # the hint, with time for it
+    monkeypatch.setattr(planner, "CHEAPER_RATES_S", 0.0)
+    hurried = plan_chain(spec)
+    assert hurried.chosen.layout == full.chosen.layout
+    assert not any("@" in c.layout for c in hurried.alternatives)
+
+
+def test_budget_holds_inside_the_response_of_many_image_paths():
+    # a rational stage with a large L has hundreds of image paths to check; the budget
+    # is checked between them, so the search cannot run on past it
+    from channelizer.planning import limits
+    from channelizer.planning.response import predict
+
+    plan = plan_chain(ChainSpec(input_rate=2.4e6, bandwidth=15e3, output_rate=44.1e3)).plan
+    assert any(s.kind == "resampler" and s.interpolation > 100 for s in plan.stages)
+    with limits._budget(-1.0):  # already spent
+        with pytest.raises(limits.BudgetSpent, match="budget"):
+            predict(plan.stages, fs=plan.input_rate, bandwidth=plan.bandwidth)

@@ -30,7 +30,7 @@ from ..errors import ChannelizerError
 from ..units import format_hz
 from .hogenauer import planned_cic
 from .output_rates import MIN_OVERSAMPLING, default_decimation, targets as _targets
-from .limits import check_time, planning_budget
+from .limits import BudgetSpent, check_time, planning_budget, side_budget
 from .quantize import quantize_taps
 from .plan import Plan
 from .response import fold, path_of, predict
@@ -318,6 +318,10 @@ def _search(spec, targets, max_designed=MAX_DESIGNED):
     return tried
 
 
+#: CPU seconds each nearby rate may take to look for a cheaper chain (a hint beside the plan).
+CHEAPER_RATES_S = 1.0
+
+
 def _cheaper_rates(spec, best, d):
     """Chains at a slightly higher output rate that cost markedly less than ``best``."""
     fs = spec.input_rate
@@ -328,7 +332,11 @@ def _cheaper_rates(spec, best, d):
     out = []
     for k in options[:2]:  # the two smoothest: a planner answer stays fast
         alt = replace(spec, output_rate=fs / k)
-        good = [c for c in _search(alt, [(k, None, fs / k)], max_designed=4) if c.meets]
+        try:
+            with side_budget(CHEAPER_RATES_S):
+                good = [c for c in _search(alt, [(k, None, fs / k)], max_designed=4) if c.meets]
+        except BudgetSpent:  # a hint only: the plan found stands
+            break
         if not good:
             continue
         c = min(good, key=lambda c: c.cost.key())

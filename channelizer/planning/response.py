@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .limits import check_time
 from .stages import ResamplerStage, chain_rates
 
 __all__ = ["composite_response", "normalised_response", "impulse_seconds", "alias_intervals", "landing_intervals", "path_of", "resampler_of", "image_step", "Prediction", "predict", "fold"]
@@ -225,6 +226,7 @@ def _worst(stages, by_image, fs, dc, points_per_band, refine=4, refine_points=20
     steps = np.linspace(0.0, 1.0, points_per_band)
     paths = [(k, lo, hi) for k, lo, hi in by_image if lo.size]
     for k, lo, hi in paths:
+        check_time()  # hundreds of image paths behind a large L: the planner's budget holds here too
         f = (lo[:, None] + (hi - lo)[:, None] * steps).ravel()
         att = -20.0 * np.log10(np.maximum(_magnitude(stages, f, fs=fs, image=k), 1e-300) / dc)
         per_band = att.reshape(lo.size, points_per_band).min(axis=1)
@@ -235,6 +237,7 @@ def _worst(stages, by_image, fs, dc, points_per_band, refine=4, refine_points=20
     if len(paths) > refine:
         coarse = sorted(coarse, key=lambda t: t[0])[: 4 * refine]
     for _, k, (lo, hi) in coarse:
+        check_time()
         fine = _grid(lo, hi, refine_points)
         a = -20.0 * np.log10(np.maximum(_magnitude(stages, fine, fs=fs, image=k), 1e-300) / dc)
         i = int(np.argmin(a))
