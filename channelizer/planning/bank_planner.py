@@ -165,12 +165,8 @@ def _bin_map(offsets, fs, M):
     return bins, res
 
 
-def _kaiser_length(fs, fp, fst, atten):
-    return kaiser_length(atten, fst - fp, fs=fs)
-
-
 def _kaiser_prototype(fs, M, fp, fst, atten):
-    n, beta = _kaiser_length(fs, fp, fst, atten)
+    n, beta = kaiser_length(atten, fst - fp, fs=fs)
     K = max(1, -(-n // M))
     return kaiser_lowpass(K * M, (fp + fst) / 2, beta=beta, fs=fs)
 
@@ -197,7 +193,7 @@ def _design(spec, offsets, M, O, mode):
     label = f"bank M={M} O={O} (neighbours: {'prototype' if mode == 'bank' else 'fine stages'})"
     if fst <= fp:
         return Candidate(label, math.inf, reason=f"no transition band left ({fp:g} to {fst:g} Hz)")
-    n_taps = _kaiser_length(fs, fp, fst, spec.rejection_db + 3.0)[0]
+    n_taps = kaiser_length(spec.rejection_db + 3.0, fst - fp, fs=fs)[0]
     if n_taps > MAX_PROTOTYPE_TAPS:
         return Candidate(label, math.inf, reason=f"prototype of about {n_taps} taps (transition {fst - fp:g} Hz)")
     out = spec.output_rate or fs_b / max(1, math.floor(fs_b / (MIN_OVERSAMPLING * bw) + 1e-9))

@@ -390,15 +390,15 @@ def remez_bands(numtaps, edges, desired, *, weight=None, fs, grid_density=GRID_D
     """
     edges = np.asarray(edges, dtype=float)
     nb = edges.size // 2
-    if numtaps >= COMPILED_FROM:
-        taps = _compiled_remez(numtaps, edges, desired, weight, fs=fs, grid_density=grid_density)
-        if taps is not None:
-            return taps
     if edges.size != 2 * nb or len(desired) != nb:
         raise ValueError(f"edges must be pairs, one desired value each: got {edges.size} edges, {len(desired)} values")
     if np.any(np.diff(edges) < 0) or edges[0] < 0 or edges[-1] > fs / 2.0:
         raise ValueError(f"band edges {edges.tolist()} must ascend within [0, fs/2 = {fs / 2.0:g}] Hz")
     weight = np.ones(nb) if weight is None else np.asarray(weight, dtype=float)
+    if numtaps >= COMPILED_FROM:
+        taps = _compiled_remez(numtaps, edges, desired, weight, fs=fs, grid_density=grid_density)
+        if taps is not None:
+            return taps
     r = (numtaps + 1) // 2 if numtaps % 2 else numtaps // 2
     lattice = grid_density * r
     f, d, w = [], [], []
