@@ -13,6 +13,7 @@ import hashlib
 import json
 import math
 import os
+import subprocess
 import sys
 import warnings
 
@@ -158,6 +159,21 @@ def test_whole_command_is_timed_beside_its_pass(report):
         t = report.targets[key]
         assert t["met"] == (t["value"] >= t["limit"])
     assert "whole command" in format_report(report)
+    # a fresh interpreter importing numpy alone is a floor under the command (common practice)
+    assert 0 < cmd["startup_floor_s"] < cmd["best_s"]
+    assert "only imports numpy" in format_report(report)
+
+
+def test_timed_command_caches_its_bytecode_like_an_installed_package(tmp_path, monkeypatch):
+    from channelizer.bench.command import _child_env
+
+    monkeypatch.setenv("PYTHONDONTWRITEBYTECODE", "1")
+    env = _child_env(str(tmp_path / "bytecode"))
+    assert "PYTHONDONTWRITEBYTECODE" not in env and env["PYTHONPYCACHEPREFIX"] == str(tmp_path / "bytecode")
+    done = subprocess.run([sys.executable, "-c", "import channelizer.units"], env=env, capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    # Python writes the compiled module under the prefix, mirroring the source path (PEP 3147, from memory)
+    assert list((tmp_path / "bytecode").rglob("units*.pyc"))
 
 
 def test_soak_mechanics(soak):

@@ -161,6 +161,9 @@ def format_report(report):
                   f"({cmd['pass_realtime_factor']:.2f}x), start-up, audit and summary {cmd['outside_pass_s']:.3f} s; "
                   f"reference for {cmd['channels']} channels {cmd['reference_s']:.2f} s",
                   f"  {cmd['argv']}"]
+        if "startup_floor_s" in cmd:
+            lines.append(f"  a fresh interpreter that only imports numpy takes {cmd['startup_floor_s']:.3f} s here "
+                         "(no command can be faster)")
     w = report.workers
     if w:
         lines += ["", f"{w['workers']} dask workers against one process ({w['channels']} channels, {w['chunks']} chunks, "

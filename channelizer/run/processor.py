@@ -25,6 +25,7 @@ from ..dsp.spaced_welch import SpacedWelch
 from ..planning.response import impulse_seconds
 from ..planning.stages import chain_rates
 from ..io.progress import ProgressBar
+from ..io.read_ahead import read_ahead
 from ..units import format_hz
 from .timing import channel_timing
 
@@ -293,20 +294,29 @@ class _Pass:
         self.peak = [0.0] * len(requests)
         self.writers = []
 
+    def _raw_integers(self, block):
+        """A bit-true block's integers as int64, offset binary made signed."""
+        raw = block.astype(np.int64)
+        if self.capture.datatype.kind == "u":
+            raw = raw - (1 << (self.capture.datatype.bits - 1))
+        return raw
+
+    def _add_to_overview(self, block):
+        """Feed one input block, as read, to the overview spectrum."""
+        if not self.bit_true:
+            self.overview.update(block)
+        elif self.overview.needs(block.shape[0]):
+            raw = self._raw_integers(block)
+            scale_in = np.float32(2.0 ** (self.capture.datatype.bits - 1))
+            self.overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / scale_in)
+        else:
+            self.overview.skip(block.shape[0])
+
     def _outputs(self, i, block):
         """Every channel's output for one input block (complex64, full-scale units)."""
         if not self.bit_true:
-            if self.overview is not None:
-                self.overview.update(block)
             return self.bank.process(block)
-        scale_in = 2.0 ** (self.capture.datatype.bits - 1)
-        raw = block.astype(np.int64)
-        if self.capture.datatype.kind == "u":
-            raw = raw - int(scale_in)
-        if self.overview is not None and self.overview.needs(raw.shape[0]):
-            self.overview.update((raw[:, 0] + 1j * raw[:, 1]).astype(np.complex64) / np.float32(scale_in))
-        elif self.overview is not None:
-            self.overview.skip(raw.shape[0])
+        raw = self._raw_integers(block)
         outs = []
         for runner in self.runners:
             y = runner.process(raw)
@@ -368,9 +378,12 @@ class _Pass:
                 blocks = cap.raw_blocks(self.block_size)
             else:
                 blocks = cap.blocks(self.block_size, nonfinite=nonfinite)
-            done = 0
             # an overflow shows as a non-finite output, refused below with one line (not numpy warnings)
             stack.enter_context(np.errstate(over="ignore", invalid="ignore"))
+            # reading, converting and the overview spectrum run one block ahead on a second
+            # thread (they spend their time in numpy calls that release the interpreter lock)
+            blocks = read_ahead(blocks, None if self.overview is None else self._add_to_overview)
+            done = 0
             for i, block in enumerate(blocks):
                 for k, y in enumerate(self._outputs(i, block)):
                     if y.size and not np.isfinite(y.view(np.float32)).all():

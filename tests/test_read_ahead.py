@@ -1,0 +1,95 @@
+"""Reading one block ahead on a second thread: same blocks, same order, same pass."""
+
+import threading
+
+import numpy as np
+import pytest
+
+from channelizer.errors import ChannelizerError
+from channelizer.io.captures import open_capture
+from channelizer.io.read_ahead import read_ahead
+from channelizer.run import processor
+from channelizer.run.extraction import load_plan_file
+from channelizer.run.processor import ChannelRequest, extract_channels
+
+
+def test_blocks_come_in_order_each_seen_by_side_first_on_another_thread():
+    seen, threads = [], set()
+
+    def side(b):
+        seen.append(b)
+        threads.add(threading.current_thread().name)
+
+    out = []
+    for b in read_ahead(range(7), side):
+        assert b in seen  # the side saw the block before the consumer
+        out.append(b)
+    assert out == list(range(7)) and seen == list(range(7))
+    assert threading.main_thread().name not in threads
+
+
+def test_errors_reach_the_consumer_at_their_block():
+    def blocks():
+        yield 1
+        yield 2
+        raise ChannelizerError("capture.sigmf-data: truncated")
+
+    got = []
+    with pytest.raises(ChannelizerError, match="truncated"):
+        for b in read_ahead(blocks()):
+            got.append(b)
+    assert got == [1, 2]
+
+    def side(b):
+        if b == 3:
+            raise ValueError("bad block 3")
+
+    got = []
+    with pytest.raises(ValueError, match="bad block 3"):
+        for b in read_ahead(range(10), side):
+            got.append(b)
+    assert got == [0, 1, 2]
+
+
+def test_a_consumer_that_stops_early_leaves_no_thread():
+    before = threading.active_count()
+    gen = read_ahead(iter(range(100)))
+    assert next(gen) == 0
+    gen.close()
+    assert threading.active_count() == before
+
+
+def _extract(path, plan_path, out, monkeypatch=None):
+    plan, ident = load_plan_file(plan_path)
+    reqs = [ChannelRequest("a", 0.0, plan, ident, plan_path), ChannelRequest("b", -300e3, plan, ident, plan_path)]
+    res = extract_channels(open_capture(path), reqs, str(out), block_size=4096)
+    data = [np.fromfile(out / f"{n}.sigmf-data", np.complex64) for n in ("a", "b")]
+    return res, data
+
+
+def test_pass_reading_ahead_equals_a_pass_reading_in_line(small_capture, plan_path, tmp_path, monkeypatch):
+    ahead, ahead_data = _extract(small_capture, plan_path, tmp_path / "ahead")
+
+    def in_line(blocks, side=None):  # the pass as it was: read, feed the spectrum, run, in one thread
+        for b in blocks:
+            if side is not None:
+                side(b)
+            yield b
+
+    monkeypatch.setattr(processor, "read_ahead", in_line)
+    plain, plain_data = _extract(small_capture, plan_path, tmp_path / "plain")
+    for x, y in zip(ahead_data, plain_data):
+        assert x.size > 0 and np.array_equal(x, y)
+    assert ahead.overview.segments == plain.overview.segments > 0
+    assert np.array_equal(ahead.overview.psd, plain.overview.psd)
+
+
+def test_the_second_thread_follows_the_consumer_s_error_settings():
+    def side(b):
+        np.float32(3e38) * np.float32(10)  # overflows float32
+
+    with np.errstate(over="raise"):
+        with pytest.raises(FloatingPointError):
+            list(read_ahead(range(2), side))
+    with np.errstate(over="ignore"):
+        assert list(read_ahead(range(2), side)) == [0, 1]
