@@ -297,6 +297,8 @@ def test_bench_workers_figures(scene, tmp_path):
     got = time_workers(cap_path, _requests(plans), str(tmp_path), workers=2, repeats=1)
     assert got["workers"] == 2 and got["identical"]
     assert got["speedup"] == pytest.approx(min(got["one_process_runs_s"]) / min(got["workers_runs_s"]), rel=1e-2, abs=1e-3)
+    assert got["speedup_vs_one_thread"] == pytest.approx(min(got["one_thread_runs_s"]) / min(got["workers_runs_s"]),
+                                                         rel=1e-2, abs=1e-3)
     assert got["chunks"] >= 1 and 0 <= got["overlap_cost"] < 1
 
 

@@ -59,10 +59,10 @@ def test_a_consumer_that_stops_early_leaves_no_thread():
     assert threading.active_count() == before
 
 
-def _extract(path, plan_path, out, monkeypatch=None):
+def _extract(path, plan_path, out, **kw):
     plan, ident = load_plan_file(plan_path)
     reqs = [ChannelRequest("a", 0.0, plan, ident, plan_path), ChannelRequest("b", -300e3, plan, ident, plan_path)]
-    res = extract_channels(open_capture(path), reqs, str(out), block_size=4096)
+    res = extract_channels(open_capture(path), reqs, str(out), block_size=4096, **kw)
     data = [np.fromfile(out / f"{n}.sigmf-data", np.complex64) for n in ("a", "b")]
     return res, data
 
@@ -82,6 +82,10 @@ def test_pass_reading_ahead_equals_a_pass_reading_in_line(small_capture, plan_pa
         assert x.size > 0 and np.array_equal(x, y)
     assert ahead.overview.segments == plain.overview.segments > 0
     assert np.array_equal(ahead.overview.psd, plain.overview.psd)
+    # the option that keeps the pass on one thread gives the same pass
+    one, one_data = _extract(small_capture, plan_path, tmp_path / "one", read_ahead=False)
+    assert all(np.array_equal(x, y) for x, y in zip(one_data, plain_data))
+    assert np.array_equal(one.overview.psd, plain.overview.psd)
 
 
 def test_the_second_thread_follows_the_consumer_s_error_settings():

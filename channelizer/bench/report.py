@@ -170,6 +170,9 @@ def format_report(report):
                   f"pre-roll {100 * w['overlap_cost']:.1f} % of a chunk): best {min(w['workers_runs_s']):.3f} s "
                   f"against {min(w['one_process_runs_s']):.3f} s, speed-up {w['speedup']:.2f}x; cluster start "
                   f"{w['cluster_start_s']:.1f} s; outputs {'identical' if w['identical'] else 'DIFFERENT'}"]
+        if "speedup_vs_one_thread" in w:
+            lines.append(f"  against one process on one thread (no read-ahead, as each worker runs): "
+                         f"{min(w['one_thread_runs_s']):.3f} s, speed-up {w['speedup_vs_one_thread']:.2f}x")
     lines += ["", "targets:"]
     labels = {
         "speedup_vs_reference": "one channel speed / reference speed",
@@ -177,7 +180,7 @@ def format_report(report):
         "one_channel_realtime": "one channel speed / real time",
         "command_realtime": "whole command speed / real time",
         "command_speedup_vs_reference": "whole command speed / reference speed",
-        "workers_speedup": "dask workers speed / one process speed",
+        "workers_speedup": "dask workers speed / one process on one thread",
     }
     for key, t in report.targets.items():
         lines.append(f"  {labels.get(key, key):<44}{t['value']:>9.2f}  {t['sense']} {t['limit']:g}  {_mark(t)}")

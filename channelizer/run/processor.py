@@ -180,6 +180,7 @@ def extract_channels(
     audit_resolution=None,
     engine=None,
     runner=None,
+    read_ahead=True,
 ):
     """Extract every requested channel from ``capture`` in one pass.
 
@@ -220,6 +221,10 @@ def extract_channels(
         ``runner(pass_, out_dir, files, output_format=..., nonfinite=...,
         progress=...)`` does the reading and writing in place of this process
         (the distributed runner of :mod:`channelizer.run.distributed`).
+    read_ahead : bool
+        Read, convert and feed the overview spectrum one block ahead on a second
+        thread while the chains run (:mod:`channelizer.io.read_ahead`); False
+        keeps the pass on one thread.  The outputs are the same either way.
 
     Returns
     -------
@@ -234,6 +239,7 @@ def extract_channels(
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
                 audit_resolution=audit_resolution, engine=engine)
     one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
+    one.read_ahead = bool(read_ahead)
     own_set = fileset is None
     files = FileSet() if own_set else fileset
     t0 = time.perf_counter()
@@ -293,6 +299,7 @@ class _Pass:
         self.settle = [int(math.ceil(impulse_seconds(r.plan.stages, fs=fs) * r.plan.output_rate)) for r in requests]
         self.peak = [0.0] * len(requests)
         self.writers = []
+        self.read_ahead = True
 
     def _raw_integers(self, block):
         """A bit-true block's integers as int64, offset binary made signed."""
@@ -382,7 +389,11 @@ class _Pass:
             stack.enter_context(np.errstate(over="ignore", invalid="ignore"))
             # reading, converting and the overview spectrum run one block ahead on a second
             # thread (they spend their time in numpy calls that release the interpreter lock)
-            blocks = read_ahead(blocks, None if self.overview is None else self._add_to_overview)
+            side = None if self.overview is None else self._add_to_overview
+            if self.read_ahead:
+                blocks = read_ahead(blocks, side)
+            elif side is not None:
+                blocks = _fed_to(blocks, side)
             done = 0
             for i, block in enumerate(blocks):
                 for k, y in enumerate(self._outputs(i, block)):
@@ -420,6 +431,13 @@ class _Pass:
             )
         ov = self.overview.result() if self.overview is not None and self.overview.segments else None
         return ExtractResult(capture=cap, channels=results, input_samples=cap.num_samples, seconds=seconds, overview=ov)
+
+
+def _fed_to(blocks, side):
+    """The blocks, each passed to ``side`` first: :func:`read_ahead` on this thread."""
+    for block in blocks:
+        side(block)
+        yield block
 
 
 def _overflowed(capture, name, done, block):
