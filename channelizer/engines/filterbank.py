@@ -69,8 +69,13 @@ __all__ = ["PolyphaseBank", "BankChannelizer"]
 
 #: Threads for the FFTs (rows are independent; the targets count 2 cores).
 FFT_WORKERS = 2
-#: Complex values per pass over a frame's rows on the FFT path (a pass stays in cache).
-CHUNK = 1 << 16
+#: Complex values per pass over a batch's rows on the FFT path (a pass stays in cache).
+CHUNK = 1 << 17
+#: Frames taken together through each step of the FFT path when the residue spectra
+#: ``G`` exceed ``BATCH_FROM`` bytes: each slice of ``G`` is read once for all of them
+#: (streaming a large ``G`` once per frame made its products memory-bound).
+BATCH = 2
+BATCH_FROM = 1 << 20
 
 
 class PolyphaseBank:
@@ -132,7 +137,8 @@ class PolyphaseBank:
         if self.method == "fft":
             self._N, self._S = fft_frame(self.K, O)  # frame length, new rows per frame
             self._G = _residue_spectra(hr, O, self.decimation, self._N)
-            self._chunk = max(8, CHUNK // M)  # rows of a frame per pass (a pass stays in cache)
+            self._batch = BATCH if self._G.nbytes > BATCH_FROM else 1
+            self._chunk = max(1, min(self._N, CHUNK // (self._batch * M)))  # rows of a batch per pass (a pass stays in cache)
             self._local = threading.local()
             # kept bin k = c + Oq sits at c D + q of the residues' transforms
             self._idx = None if self.keep is None and O == 1 else (k % O) * self.decimation + k // O
@@ -188,20 +194,21 @@ class PolyphaseBank:
         ``G[f, c, b] = W_M^{cb} sum_a conj(FFT_N(c_{aD+b}))[f] W_O^{ca}``:
         ``O`` transforms of ``D`` points instead of one of ``M``.  The kept bins
         are transformed back along time; the first ``S`` rows of each frame are
-        exact (no circular wrap).  Frames run in ``FFT_WORKERS`` threads (numpy
-        and the FFT release the GIL).
+        exact (no circular wrap).  When ``G`` is large, frames go ``BATCH`` at a time
+        through each step (a slice of ``G`` serves them all while it is in cache); the frames of a
+        block are split into ``FFT_WORKERS`` consecutive parts, one per thread
+        (numpy and the FFT release the GIL).
         """
         D, O, N, M, S = self.decimation, self.oversampling, self._N, self.bins, self._S
         nb = -(-n_new // S)
         hs = hist.size
         nk = M if self.keep is None else self.keep.size
         out = np.empty((nk, nb, S), np.complex64)
-        phase = self._phase[(first_c + np.arange(S)) % O].T  # (nk, S)
-        G, idx, rows = self._G, self._idx, self._chunk
+        phase = self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
+        G, idx = self._G, self._idx
 
-        def run(f):
-            frame, Y, P = self._buffers()  # this thread's work arrays: transforms run in place
-            # the frame's rows X[fS : fS + N], copied from the history and the block
+        def fill(frame, f):
+            """Rows ``X[fS : fS + N]`` of frame ``f``, from the history and the block."""
             flat, a = frame.reshape(-1), f * S * D
             h = min(max(hs - a, 0), flat.size)
             flat[:h] = hist[a : a + h]
@@ -209,44 +216,58 @@ class PolyphaseBank:
             n_x = min(max(x.size - b0, 0), flat.size - h)
             flat[h : h + n_x] = x[b0 : b0 + n_x]
             flat[h + n_x :] = 0
-            F = scipy.fft.fft(frame, axis=0, overwrite_x=True)  # (N, D)
+
+        def batch(f0, f1):
+            frames, Y, P = self._buffers()  # this thread's work arrays: transforms run in place
+            B = f1 - f0
+            for i in range(B):
+                fill(frames[i], f0 + i)
+            F = scipy.fft.fft(frames[:B], axis=1, overwrite_x=True)  # (B, N, D)
             if P is None:  # one residue, every bin: no gather
-                Y = scipy.fft.fft(np.multiply(F, G[:, 0], out=F), axis=1, overwrite_x=True)
+                F *= G[:, 0]
+                Y = scipy.fft.fft(F, axis=2, overwrite_x=True)
             else:
+                rows = P.shape[1]
                 for r0 in range(0, N, rows):
                     r1 = min(N, r0 + rows)
-                    p = P[: r1 - r0]
-                    np.multiply(F[r0:r1, None, :], G[r0:r1], out=p)
-                    Z = scipy.fft.fft(p, axis=2, overwrite_x=True).reshape(r1 - r0, M)
+                    p = P[:B, : r1 - r0]
+                    np.multiply(F[:, r0:r1, None, :], G[r0:r1], out=p)
+                    Z = scipy.fft.fft(p, axis=3, overwrite_x=True).reshape(B, r1 - r0, M)
                     if idx is None:
-                        Y[r0:r1] = Z
+                        Y[:B, r0:r1] = Z
                     else:
-                        np.take(Z, idx, axis=1, out=Y[r0:r1])
-            y = scipy.fft.ifft(Y.T, axis=1)  # (nk, N): the transform's copy-in transposes
-            np.multiply(y[:, :S], phase, out=out[:, f])
+                        np.take(Z, idx, axis=2, out=Y[:B, r0:r1], mode="clip")
+                Y = Y[:B]
+            y = scipy.fft.ifft(Y.transpose(0, 2, 1), axis=2)  # (B, nk, N): the transform's copy-in transposes
+            np.multiply(y[:, :, :S].transpose(1, 0, 2), phase, out=out[:, f0:f1])
 
-        def frames(f0, f1):
-            for f in range(f0, f1):
-                run(f)
+        def part(f0, f1):
+            for g in range(f0, f1, self._batch):
+                batch(g, min(f1, g + self._batch))
 
-        if FFT_WORKERS > 1 and nb > 1:
-            per = max(1, nb // (4 * FFT_WORKERS))  # a few tasks per thread: balance against overhead
-            list(_pool().map(lambda f0: frames(f0, min(nb, f0 + per)), range(0, nb, per)))
+        workers = min(FFT_WORKERS, nb)
+        if workers > 1:
+            cuts = [nb * i // workers for i in range(workers + 1)]
+            pending = [_pool().submit(part, cuts[i], cuts[i + 1]) for i in range(1, workers)]
+            part(cuts[0], cuts[1])  # this thread takes the first part
+            for p in pending:
+                p.result()
         else:
-            frames(0, nb)
+            part(0, nb)
         return out.reshape(nk, nb * S)[:, :n_new]
 
     def _buffers(self):
-        """The calling thread's work arrays ``(frame, Y, P)`` for :meth:`_by_fft` (made on first use)."""
+        """The calling thread's work arrays ``(frames, Y, P)`` for :meth:`_by_fft` (made on first use)."""
         w = self._local.__dict__.get("arrays")
         if w is None:
             N, D, O, M = self._N, self.decimation, self.oversampling, self.bins
-            frame = np.empty((N, D), np.complex64)
-            if self._idx is None and self._chunk >= N and O == 1:
-                w = (frame, None, None)
+            B = self._batch
+            frames = np.empty((B, N, D), np.complex64)
+            if self._idx is None and O == 1:
+                w = (frames, None, None)
             else:
                 nk = M if self.keep is None else self.keep.size
-                w = (frame, np.empty((N, nk), np.complex64), np.empty((min(self._chunk, N), O, D), np.complex64))
+                w = (frames, np.empty((B, N, nk), np.complex64), np.empty((B, self._chunk, O, D), np.complex64))
             self._local.arrays = w
         return w
 
