@@ -204,7 +204,10 @@ class PolyphaseBank:
         hs = hist.size
         nk = M if self.keep is None else self.keep.size
         out = np.empty((nk, nb, S), np.complex64)
-        phase = self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
+        if O == 1:  # one shift for every output: a phase per bin, read once
+            phase = self._phase[0][:, None, None]
+        else:
+            phase = self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
         G, idx = self._G, self._idx
 
         def fill(frame, f):
