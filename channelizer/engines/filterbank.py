@@ -195,9 +195,9 @@ class PolyphaseBank:
         ``O`` transforms of ``D`` points instead of one of ``M``.  The kept bins
         are transformed back along time; the first ``S`` rows of each frame are
         exact (no circular wrap).  When ``G`` is large, frames go ``BATCH`` at a time
-        through each step (a slice of ``G`` serves them all while it is in cache); the frames of a
-        block are split into ``FFT_WORKERS`` consecutive parts, one per thread
-        (numpy and the FFT release the GIL).
+        through each step (a slice of ``G`` serves them all while it is in cache); the
+        batches of a block go to ``FFT_WORKERS`` threads, each taking the next one when
+        it is free (numpy and the FFT release the GIL).
         """
         D, O, N, M, S = self.decimation, self.oversampling, self._N, self.bins, self._S
         nb = -(-n_new // S)
@@ -244,19 +244,19 @@ class PolyphaseBank:
             y = scipy.fft.ifft(Y.transpose(0, 2, 1), axis=2)  # (B, nk, N): the transform's copy-in transposes
             np.multiply(y[:, :, :S].transpose(1, 0, 2), phase, out=out[:, f0:f1])
 
-        def part(f0, f1):
-            for g in range(f0, f1, self._batch):
-                batch(g, min(f1, g + self._batch))
+        # batches handed out one at a time to whichever thread is free (the calling
+        # thread works too): a thread slowed by another process takes fewer of them
+        todo = iter([(g, min(nb, g + self._batch)) for g in range(0, nb, self._batch)])
 
-        workers = min(FFT_WORKERS, nb)
-        if workers > 1:
-            cuts = [nb * i // workers for i in range(workers + 1)]
-            pending = [_pool().submit(part, cuts[i], cuts[i + 1]) for i in range(1, workers)]
-            part(cuts[0], cuts[1])  # this thread takes the first part
-            for p in pending:
-                p.result()
-        else:
-            part(0, nb)
+        def work():
+            for f0, f1 in todo:  # the iterator hands each batch to one thread (it runs under the GIL)
+                batch(f0, f1)
+
+        workers = min(FFT_WORKERS, -(-nb // self._batch))
+        pending = [_pool().submit(work) for _ in range(workers - 1)]
+        work()
+        for p in pending:
+            p.result()
         return out.reshape(nk, nb * S)[:, :n_new]
 
     def _buffers(self):
