@@ -23,7 +23,9 @@ the commutator) go through one ``M``-point DFT per output, and the factor
 ``s = nD mod M`` (it takes ``O`` values) before the DFT.  Written with the
 time-reversed window ``u[r] = sum_m h[KM-1-mM-r] x[nD-KM+1+mM+r]``
 (``v_p = u[M-1-p]``), ``y[n] = FFT_M(roll(u, s + 1))``, computed as
-``FFT_M(u)[k] exp(-2j pi k (s + 1) / M)`` on the kept bins (shift theorem).  Cost per input sample:
+``FFT_M(u)[k] exp(-2j pi k (s + 1) / M)`` on the kept bins (shift theorem;
+on the FFT path with ``O = 1``, where ``s + 1 = 1`` always, the roll is taken on the
+transform's input instead).  Cost per input sample:
 ``K O`` real-by-complex multiplies plus one ``M``-point FFT per ``D`` inputs.
 
 For long prototypes (:func:`channelizer.planning.bank.bank_method`) the branch sums run as
@@ -204,10 +206,9 @@ class PolyphaseBank:
         hs = hist.size
         nk = M if self.keep is None else self.keep.size
         out = np.empty((nk, nb, S), np.complex64)
-        if O == 1:  # one shift for every output: a phase per bin, read once
-            phase = self._phase[0][:, None, None]
-        else:
-            phase = self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
+        # O = 1: every output has the shift s + 1 = 1, taken as roll(u, 1) on the D-point
+        # transforms' input (see _product); else the phase after the transform back
+        phase = None if O == 1 else self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
         G, idx = self._G, self._idx
 
         def fill(frame, f):
@@ -226,15 +227,15 @@ class PolyphaseBank:
             for i in range(B):
                 fill(frames[i], f0 + i)
             F = scipy.fft.fft(frames[:B], axis=1, overwrite_x=True)  # (B, N, D)
-            if P is None:  # one residue, every bin: no gather
-                F *= G[:, 0]
-                Y = scipy.fft.fft(F, axis=2, overwrite_x=True)
+            if Y is None:  # one residue, every bin: no gather
+                _product(F[:, :, None, :], G, out=P[:B])
+                Y = scipy.fft.fft(P[:B], axis=3, overwrite_x=True).reshape(B, N, M)
             else:
                 rows = P.shape[1]
                 for r0 in range(0, N, rows):
                     r1 = min(N, r0 + rows)
                     p = P[:B, : r1 - r0]
-                    np.multiply(F[:, r0:r1, None, :], G[r0:r1], out=p)
+                    _product(F[:, r0:r1, None, :], G[r0:r1], out=p)
                     Z = scipy.fft.fft(p, axis=3, overwrite_x=True).reshape(B, r1 - r0, M)
                     if idx is None:
                         Y[:B, r0:r1] = Z
@@ -242,7 +243,10 @@ class PolyphaseBank:
                         np.take(Z, idx, axis=2, out=Y[:B, r0:r1], mode="clip")
                 Y = Y[:B]
             y = scipy.fft.ifft(Y.transpose(0, 2, 1), axis=2)  # (B, nk, N): the transform's copy-in transposes
-            np.multiply(y[:, :, :S].transpose(1, 0, 2), phase, out=out[:, f0:f1])
+            if phase is None:
+                np.copyto(out[:, f0:f1], y[:, :, :S].transpose(1, 0, 2))
+            else:
+                np.multiply(y[:, :, :S].transpose(1, 0, 2), phase, out=out[:, f0:f1])
 
         # batches handed out one at a time to whichever thread is free (the calling
         # thread works too): a thread slowed by another process takes fewer of them
@@ -267,7 +271,7 @@ class PolyphaseBank:
             B = self._batch
             frames = np.empty((B, N, D), np.complex64)
             if self._idx is None and O == 1:
-                w = (frames, None, None)
+                w = (frames, None, np.empty((B, N, 1, D), np.complex64))
             else:
                 nk = M if self.keep is None else self.keep.size
                 w = (frames, np.empty((B, N, nk), np.complex64), np.empty((B, self._chunk, O, D), np.complex64))
@@ -309,6 +313,18 @@ class PolyphaseBank:
         self._hist = x[cut - hs :].copy() if cut >= hs else np.concatenate((hist[cut:], x))
         self.n_out = m_end
         return out
+
+
+def _product(F, G, *, out):
+    """``out = F G`` (``(..., O, D)`` by residue and column); with one residue (``O = 1``)
+    rolled by one column, ``out[..., b] = F[..., b - 1] G[..., b - 1]``: the ``D``-point
+    transform of the rolled product is the bank's ``FFT_M(roll(u, s + 1))`` with
+    ``s = 0``, so that no phase is left to apply after it."""
+    if G.shape[-2] == 1:
+        np.multiply(F[..., :-1], G[..., :-1], out=out[..., 1:])
+        np.multiply(F[..., -1:], G[..., -1:], out=out[..., :1])
+    else:
+        np.multiply(F, G, out=out)
 
 
 def _runs(keep):
