@@ -208,7 +208,7 @@ class PolyphaseBank:
         out = np.empty((nk, nb, S), np.complex64)
         # O = 1: every output has the shift s + 1 = 1, taken as roll(u, 1) on the D-point
         # transforms' input (see _product); else the phase after the transform back
-        phase = None if O == 1 else self._phase[(first_c + np.arange(S)) % O].T[:, None, :]  # (nk, 1, S)
+        phase = None if O == 1 else np.ascontiguousarray(self._phase[(first_c + np.arange(S)) % O].T)[:, None, :]  # (nk, 1, S)
         G, idx = self._G, self._idx
 
         def fill(frame, f):
