@@ -139,6 +139,8 @@ class PolyphaseBank:
         if self.method == "fft":
             self._N, self._S = fft_frame(self.K, O)  # frame length, new rows per frame
             self._G = _residue_spectra(hr, O, self.decimation, self._N)
+            if O == 1:  # frames come rolled by one column (see _by_fft): so do their spectra
+                self._G = np.roll(self._G, 1, axis=-1)
             self._batch = BATCH if self._G.nbytes > BATCH_FROM else 1
             self._chunk = max(1, min(self._N, CHUNK // (self._batch * M)))  # rows of a batch per pass (a pass stays in cache)
             self._local = threading.local()
@@ -206,36 +208,52 @@ class PolyphaseBank:
         hs = hist.size
         nk = M if self.keep is None else self.keep.size
         out = np.empty((nk, nb, S), np.complex64)
-        # O = 1: every output has the shift s + 1 = 1, taken as roll(u, 1) on the D-point
-        # transforms' input (see _product); else the phase after the transform back
+        # O = 1: every output has the shift s + 1 = 1, taken as roll(u, 1): the frame's
+        # columns and G come rolled by one (F[:, b - 1] G[:, b - 1] at column b, the
+        # transform of u[t - 1]); else the phase after the transform back
         phase = None if O == 1 else np.ascontiguousarray(self._phase[(first_c + np.arange(S)) % O].T)[:, None, :]  # (nk, 1, S)
         G, idx = self._G, self._idx
 
-        def fill(frame, f):
-            """Rows ``X[fS : fS + N]`` of frame ``f``, from the history and the block."""
-            flat, a = frame.reshape(-1), f * S * D
-            h = min(max(hs - a, 0), flat.size)
-            flat[:h] = hist[a : a + h]
-            b0 = max(a - hs, 0)
+        def fill(flat, start):
+            """``flat[j] = buf[start + j]``: the history, then the block, then zeros."""
+            h = min(max(hs - start, 0), flat.size)
+            flat[:h] = hist[start : start + h]
+            b0 = max(start - hs, 0)
             n_x = min(max(x.size - b0, 0), flat.size - h)
             flat[h : h + n_x] = x[b0 : b0 + n_x]
             flat[h + n_x :] = 0
+
+        def frame(rows, f):
+            """Rows ``X[fS : fS + N]`` of frame ``f`` into ``rows`` (``N + 1`` rows of ``D``);
+            with ``O = 1`` rolled by one column, ``X[i, b - 1]`` at column ``b``: the samples
+            from one earlier (``buf[a - 1 + j]``, ``a = fSD``), column 0 then taken from
+            the next row (``X[i, D - 1] = buf[a - 1 + (i + 1) D]``)."""
+            flat, a = rows.reshape(-1), f * S * D
+            if O > 1:
+                fill(flat[: N * D], a)
+                return
+            if a == 0:  # buf[-1] lands in column 0 of row 0, which is replaced below
+                flat[0] = 0
+                fill(flat[1 : N * D + 1], 0)
+            else:
+                fill(flat[: N * D + 1], a - 1)
+            rows[:N, 0] = flat[D : N * D + 1 : D]
 
         def batch(f0, f1):
             frames, Y, P = self._buffers()  # this thread's work arrays: transforms run in place
             B = f1 - f0
             for i in range(B):
-                fill(frames[i], f0 + i)
-            F = scipy.fft.fft(frames[:B], axis=1, overwrite_x=True)  # (B, N, D)
+                frame(frames[i], f0 + i)
+            F = scipy.fft.fft(frames[:B, :N], axis=1, overwrite_x=True)  # (B, N, D)
             if Y is None:  # one residue, every bin: no gather
-                _product(F[:, :, None, :], G, out=P[:B])
-                Y = scipy.fft.fft(P[:B], axis=3, overwrite_x=True).reshape(B, N, M)
+                F *= G[:, 0]
+                Y = scipy.fft.fft(F, axis=2, overwrite_x=True)
             else:
                 rows = P.shape[1]
                 for r0 in range(0, N, rows):
                     r1 = min(N, r0 + rows)
                     p = P[:B, : r1 - r0]
-                    _product(F[:, r0:r1, None, :], G[r0:r1], out=p)
+                    np.multiply(F[:, r0:r1, None, :], G[r0:r1], out=p)
                     Z = scipy.fft.fft(p, axis=3, overwrite_x=True).reshape(B, r1 - r0, M)
                     if idx is None:
                         Y[:B, r0:r1] = Z
@@ -269,9 +287,9 @@ class PolyphaseBank:
         if w is None:
             N, D, O, M = self._N, self.decimation, self.oversampling, self.bins
             B = self._batch
-            frames = np.empty((B, N, D), np.complex64)
+            frames = np.empty((B, N + 1, D), np.complex64)  # a row more for the roll (O = 1)
             if self._idx is None and O == 1:
-                w = (frames, None, np.empty((B, N, 1, D), np.complex64))
+                w = (frames, None, None)
             else:
                 nk = M if self.keep is None else self.keep.size
                 w = (frames, np.empty((B, N, nk), np.complex64), np.empty((B, self._chunk, O, D), np.complex64))
@@ -313,18 +331,6 @@ class PolyphaseBank:
         self._hist = x[cut - hs :].copy() if cut >= hs else np.concatenate((hist[cut:], x))
         self.n_out = m_end
         return out
-
-
-def _product(F, G, *, out):
-    """``out = F G`` (``(..., O, D)`` by residue and column); with one residue (``O = 1``)
-    rolled by one column, ``out[..., b] = F[..., b - 1] G[..., b - 1]``: the ``D``-point
-    transform of the rolled product is the bank's ``FFT_M(roll(u, s + 1))`` with
-    ``s = 0``, so that no phase is left to apply after it."""
-    if G.shape[-2] == 1:
-        np.multiply(F[..., :-1], G[..., :-1], out=out[..., 1:])
-        np.multiply(F[..., -1:], G[..., -1:], out=out[..., :1])
-    else:
-        np.multiply(F, G, out=out)
 
 
 def _runs(keep):
