@@ -153,7 +153,6 @@ def test_batched_frames_in_two_threads_equal_mix_and_upfirdn(rng, monkeypatch, M
     from channelizer.engines import filterbank
 
     monkeypatch.setattr(filterbank, "BATCH", 3)
-    monkeypatch.setattr(filterbank, "BATCH_FROM", 0)
     monkeypatch.setattr(filterbank, "FFT_WORKERS", 2)
     h = scipy.signal.firwin(K * M, 1.0 / M)
     x = noise(rng, 40000)

@@ -73,11 +73,10 @@ __all__ = ["PolyphaseBank", "BankChannelizer"]
 FFT_WORKERS = 2
 #: Complex values per pass over a batch's rows on the FFT path (a pass stays in cache).
 CHUNK = 1 << 17
-#: Frames taken together through each step of the FFT path when the residue spectra
-#: ``G`` exceed ``BATCH_FROM`` bytes: each slice of ``G`` is read once for all of them
-#: (streaming a large ``G`` once per frame made its products memory-bound).
-BATCH = 2
-BATCH_FROM = 1 << 20
+#: Frames taken together through each step of the FFT path (each slice of the residue
+#: spectra ``G`` is then read once for all of them).  One: on 2 threads, batches of two
+#: frames of the 61.44 Msps bank ran 8 % slower (their work arrays leave the cache).
+BATCH = 1
 
 
 class PolyphaseBank:
@@ -141,7 +140,7 @@ class PolyphaseBank:
             self._G = _residue_spectra(hr, O, self.decimation, self._N)
             if O == 1:  # frames come rolled by one column (see _by_fft): so do their spectra
                 self._G = np.roll(self._G, 1, axis=-1)
-            self._batch = BATCH if self._G.nbytes > BATCH_FROM else 1
+            self._batch = max(1, int(BATCH))
             self._chunk = max(1, min(self._N, CHUNK // (self._batch * M)))  # rows of a batch per pass (a pass stays in cache)
             self._local = threading.local()
             # kept bin k = c + Oq sits at c D + q of the residues' transforms
@@ -198,8 +197,7 @@ class PolyphaseBank:
         ``G[f, c, b] = W_M^{cb} sum_a conj(FFT_N(c_{aD+b}))[f] W_O^{ca}``:
         ``O`` transforms of ``D`` points instead of one of ``M``.  The kept bins
         are transformed back along time; the first ``S`` rows of each frame are
-        exact (no circular wrap).  When ``G`` is large, frames go ``BATCH`` at a time
-        through each step (a slice of ``G`` serves them all while it is in cache); the
+        exact (no circular wrap).  Frames go ``BATCH`` at a time through each step; the
         batches of a block go to ``FFT_WORKERS`` threads, each taking the next one when
         it is free (numpy and the FFT release the GIL).
         """
