@@ -116,8 +116,8 @@ def test_one_channel_is_cheaper_as_a_chain():
 
 
 def test_bank_cost_counts_the_engine_s_fft_path():
-    # written from the description of bank_multiplies: frames of N = 256 rows (the power
-    # of two from 8 K O = 216), S = 230 new rows; per input sample (N / S) (log2 N + 2 O
+    # written from the description of bank_multiplies and fft_frame: frames of N = 256
+    # rows (the power of two nearest 8 K O = 216), S = 230 new rows; per input sample (N / S) (log2 N + 2 O
     # + O log2 D + kept log2 N / D) + 2 kept / D, an n-point FFT counted as n log2 n
     # multiplies (Crochiere & Rabiner 1983, ch. 7, for the DFT count; from memory)
     from channelizer.planning.bank import bank_multiplies
@@ -135,7 +135,7 @@ def test_bank_cost_counts_the_engine_s_fft_path():
     plan = result.plan
     assert isinstance(plan, BankPlan) and (plan.bins, plan.oversampling) == (M, O)
     K = len(plan.prototype) // M
-    N = 1 << int(np.ceil(np.log2(8 * K * O)))
+    N = max(64, 2 ** int(np.round(np.log2(8 * K * O))))
     S = N - K * O + 1
     want = N / S * (np.log2(N) + 2 * O + O * np.log2(D) + 5 * np.log2(N) / D) + 2 * 5 / D
     assert plan.predicted["bank_multiplies_per_input_sample"] == pytest.approx(want, abs=1e-5)

@@ -142,3 +142,26 @@ def test_residue_passes_in_pieces_equal_mix_and_upfirdn(rng, monkeypatch, worker
     for i, k in enumerate(keep):
         ref = bin_reference(h, x, k, M, D)
         assert np.max(np.abs(y[:, i] - ref)) < 1e-5 * np.max(np.abs(ref))
+
+
+@pytest.mark.parametrize("M,O,K,keep", [(16, 1, 14, None), (16, 1, 14, [1, 2, 9]), (24, 6, 5, [23, 0, 5, 7, 13])])
+def test_batched_frames_in_two_threads_equal_mix_and_upfirdn(rng, monkeypatch, M, O, K, keep):
+    # the FFT path may take several frames at a time through each step, and hands the
+    # batches of a block to two threads; forced here into batches of 3 frames, with
+    # blocks of uneven sizes (a last batch shorter than the others);
+    # reference: mixing plus scipy.signal.upfirdn (Crochiere & Rabiner 1983, ch. 7)
+    from channelizer.engines import filterbank
+
+    monkeypatch.setattr(filterbank, "BATCH", 3)
+    monkeypatch.setattr(filterbank, "FFT_WORKERS", 2)
+    h = scipy.signal.firwin(K * M, 1.0 / M)
+    x = noise(rng, 40000)
+    bank = PolyphaseBank(h, M, O, keep=keep, method="fft")
+    assert bank._batch == 3
+    y = np.concatenate(feed(bank, x.astype(np.complex64), [17000, 5, 22995]))
+    D = M // O
+    bins = range(M) if keep is None else keep
+    assert y.shape == (x.size // D, len(bins))
+    for i, k in enumerate(bins):
+        ref = bin_reference(h, x, k, M, D)
+        assert np.max(np.abs(y[:, i] - ref)) < 1e-5 * np.max(np.abs(ref))

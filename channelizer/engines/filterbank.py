@@ -23,7 +23,9 @@ the commutator) go through one ``M``-point DFT per output, and the factor
 ``s = nD mod M`` (it takes ``O`` values) before the DFT.  Written with the
 time-reversed window ``u[r] = sum_m h[KM-1-mM-r] x[nD-KM+1+mM+r]``
 (``v_p = u[M-1-p]``), ``y[n] = FFT_M(roll(u, s + 1))``, computed as
-``FFT_M(u)[k] exp(-2j pi k (s + 1) / M)`` on the kept bins (shift theorem).  Cost per input sample:
+``FFT_M(u)[k] exp(-2j pi k (s + 1) / M)`` on the kept bins (shift theorem;
+on the FFT path with ``O = 1``, where ``s + 1 = 1`` always, the roll is taken on the
+transform's input instead).  Cost per input sample:
 ``K O`` real-by-complex multiplies plus one ``M``-point FFT per ``D`` inputs.
 
 For long prototypes (:func:`channelizer.planning.bank.bank_method`) the branch sums run as
@@ -69,8 +71,12 @@ __all__ = ["PolyphaseBank", "BankChannelizer"]
 
 #: Threads for the FFTs (rows are independent; the targets count 2 cores).
 FFT_WORKERS = 2
-#: Complex values per pass over a frame's rows on the FFT path (a pass stays in cache).
-CHUNK = 1 << 16
+#: Complex values per pass over a batch's rows on the FFT path (a pass stays in cache).
+CHUNK = 1 << 17
+#: Frames taken together through each step of the FFT path (each slice of the residue
+#: spectra ``G`` is then read once for all of them).  One: on 2 threads, batches of two
+#: frames of the 61.44 Msps bank ran 8 % slower (their work arrays leave the cache).
+BATCH = 1
 
 
 class PolyphaseBank:
@@ -132,7 +138,10 @@ class PolyphaseBank:
         if self.method == "fft":
             self._N, self._S = fft_frame(self.K, O)  # frame length, new rows per frame
             self._G = _residue_spectra(hr, O, self.decimation, self._N)
-            self._chunk = max(8, CHUNK // M)  # rows of a frame per pass (a pass stays in cache)
+            if O == 1:  # frames come rolled by one column (see _by_fft): so do their spectra
+                self._G = np.roll(self._G, 1, axis=-1)
+            self._batch = max(1, int(BATCH))
+            self._chunk = max(1, min(self._N, CHUNK // (self._batch * M)))  # rows of a batch per pass (a pass stays in cache)
             self._local = threading.local()
             # kept bin k = c + Oq sits at c D + q of the residues' transforms
             self._idx = None if self.keep is None and O == 1 else (k % O) * self.decimation + k // O
@@ -188,65 +197,100 @@ class PolyphaseBank:
         ``G[f, c, b] = W_M^{cb} sum_a conj(FFT_N(c_{aD+b}))[f] W_O^{ca}``:
         ``O`` transforms of ``D`` points instead of one of ``M``.  The kept bins
         are transformed back along time; the first ``S`` rows of each frame are
-        exact (no circular wrap).  Frames run in ``FFT_WORKERS`` threads (numpy
-        and the FFT release the GIL).
+        exact (no circular wrap).  Frames go ``BATCH`` at a time through each step; the
+        batches of a block go to ``FFT_WORKERS`` threads, each taking the next one when
+        it is free (numpy and the FFT release the GIL).
         """
         D, O, N, M, S = self.decimation, self.oversampling, self._N, self.bins, self._S
         nb = -(-n_new // S)
         hs = hist.size
         nk = M if self.keep is None else self.keep.size
         out = np.empty((nk, nb, S), np.complex64)
-        phase = self._phase[(first_c + np.arange(S)) % O].T  # (nk, S)
-        G, idx, rows = self._G, self._idx, self._chunk
+        # O = 1: every output has the shift s + 1 = 1, taken as roll(u, 1): the frame's
+        # columns and G come rolled by one (F[:, b - 1] G[:, b - 1] at column b, the
+        # transform of u[t - 1]); else the phase after the transform back
+        phase = None if O == 1 else np.ascontiguousarray(self._phase[(first_c + np.arange(S)) % O].T)[:, None, :]  # (nk, 1, S)
+        G, idx = self._G, self._idx
 
-        def run(f):
-            frame, Y, P = self._buffers()  # this thread's work arrays: transforms run in place
-            # the frame's rows X[fS : fS + N], copied from the history and the block
-            flat, a = frame.reshape(-1), f * S * D
-            h = min(max(hs - a, 0), flat.size)
-            flat[:h] = hist[a : a + h]
-            b0 = max(a - hs, 0)
+        def fill(flat, start):
+            """``flat[j] = buf[start + j]``: the history, then the block, then zeros."""
+            h = min(max(hs - start, 0), flat.size)
+            flat[:h] = hist[start : start + h]
+            b0 = max(start - hs, 0)
             n_x = min(max(x.size - b0, 0), flat.size - h)
             flat[h : h + n_x] = x[b0 : b0 + n_x]
             flat[h + n_x :] = 0
-            F = scipy.fft.fft(frame, axis=0, overwrite_x=True)  # (N, D)
-            if P is None:  # one residue, every bin: no gather
-                Y = scipy.fft.fft(np.multiply(F, G[:, 0], out=F), axis=1, overwrite_x=True)
+
+        def frame(rows, f):
+            """Rows ``X[fS : fS + N]`` of frame ``f`` into ``rows`` (``N + 1`` rows of ``D``);
+            with ``O = 1`` rolled by one column, ``X[i, b - 1]`` at column ``b``: the samples
+            from one earlier (``buf[a - 1 + j]``, ``a = fSD``), column 0 then taken from
+            the next row (``X[i, D - 1] = buf[a - 1 + (i + 1) D]``)."""
+            flat, a = rows.reshape(-1), f * S * D
+            if O > 1:
+                fill(flat[: N * D], a)
+                return
+            if a == 0:  # buf[-1] lands in column 0 of row 0, which is replaced below
+                flat[0] = 0
+                fill(flat[1 : N * D + 1], 0)
             else:
+                fill(flat[: N * D + 1], a - 1)
+            rows[:N, 0] = flat[D : N * D + 1 : D]
+
+        def batch(f0, f1):
+            frames, Y, P = self._buffers()  # this thread's work arrays: transforms run in place
+            B = f1 - f0
+            for i in range(B):
+                frame(frames[i], f0 + i)
+            F = scipy.fft.fft(frames[:B, :N], axis=1, overwrite_x=True)  # (B, N, D)
+            if Y is None:  # one residue, every bin: no gather
+                F *= G[:, 0]
+                Y = scipy.fft.fft(F, axis=2, overwrite_x=True)
+            else:
+                rows = P.shape[1]
                 for r0 in range(0, N, rows):
                     r1 = min(N, r0 + rows)
-                    p = P[: r1 - r0]
-                    np.multiply(F[r0:r1, None, :], G[r0:r1], out=p)
-                    Z = scipy.fft.fft(p, axis=2, overwrite_x=True).reshape(r1 - r0, M)
+                    p = P[:B, : r1 - r0]
+                    np.multiply(F[:, r0:r1, None, :], G[r0:r1], out=p)
+                    Z = scipy.fft.fft(p, axis=3, overwrite_x=True).reshape(B, r1 - r0, M)
                     if idx is None:
-                        Y[r0:r1] = Z
+                        Y[:B, r0:r1] = Z
                     else:
-                        np.take(Z, idx, axis=1, out=Y[r0:r1])
-            y = scipy.fft.ifft(Y.T, axis=1)  # (nk, N): the transform's copy-in transposes
-            np.multiply(y[:, :S], phase, out=out[:, f])
+                        np.take(Z, idx, axis=2, out=Y[:B, r0:r1], mode="clip")
+                Y = Y[:B]
+            y = scipy.fft.ifft(Y.transpose(0, 2, 1), axis=2)  # (B, nk, N): the transform's copy-in transposes
+            if phase is None:
+                np.copyto(out[:, f0:f1], y[:, :, :S].transpose(1, 0, 2))
+            else:
+                np.multiply(y[:, :, :S].transpose(1, 0, 2), phase, out=out[:, f0:f1])
 
-        def frames(f0, f1):
-            for f in range(f0, f1):
-                run(f)
+        # batches handed out one at a time to whichever thread is free (the calling
+        # thread works too): a thread slowed by another process takes fewer of them
+        todo = iter([(g, min(nb, g + self._batch)) for g in range(0, nb, self._batch)])
 
-        if FFT_WORKERS > 1 and nb > 1:
-            per = max(1, nb // (4 * FFT_WORKERS))  # a few tasks per thread: balance against overhead
-            list(_pool().map(lambda f0: frames(f0, min(nb, f0 + per)), range(0, nb, per)))
-        else:
-            frames(0, nb)
+        def work():
+            for f0, f1 in todo:  # the iterator hands each batch to one thread (it runs under the GIL)
+                batch(f0, f1)
+
+        workers = min(FFT_WORKERS, -(-nb // self._batch))
+        pending = [_pool().submit(work) for _ in range(workers - 1)]
+        work()
+        for p in pending:
+            p.result()
         return out.reshape(nk, nb * S)[:, :n_new]
 
     def _buffers(self):
-        """The calling thread's work arrays ``(frame, Y, P)`` for :meth:`_by_fft` (made on first use)."""
+        """The calling thread's work arrays ``(frames, Y, P)`` for :meth:`_by_fft` (made on first use)."""
         w = self._local.__dict__.get("arrays")
         if w is None:
             N, D, O, M = self._N, self.decimation, self.oversampling, self.bins
-            frame = np.empty((N, D), np.complex64)
-            if self._idx is None and self._chunk >= N and O == 1:
-                w = (frame, None, None)
+            B = self._batch
+            frames = np.empty((B, N + 1, D), np.complex64)  # a row more for the roll (O = 1)
+            if self._idx is None and O == 1:
+                w = (frames, None, None)
             else:
                 nk = M if self.keep is None else self.keep.size
-                w = (frame, np.empty((N, nk), np.complex64), np.empty((min(self._chunk, N), O, D), np.complex64))
+                w = (frames, np.empty((B, N, nk), np.complex64), np.empty((B, self._chunk, O, D), np.complex64))
             self._local.arrays = w
         return w
 
