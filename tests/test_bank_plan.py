@@ -118,14 +118,20 @@ def test_one_channel_is_cheaper_as_a_chain():
 def test_bank_cost_counts_the_engine_s_fft_path():
     # written from the description of bank_multiplies and fft_frame: frames of N = 256
     # rows (the power of two nearest 8 K O = 216), S = 230 new rows; per input sample (N / S) (log2 N + 2 O
-    # + O log2 D + kept log2 N / D) + 2 kept / D, an n-point FFT counted as n log2 n
-    # multiplies (Crochiere & Rabiner 1983, ch. 7, for the DFT count; from memory)
+    # + O log2 D + kept log2 N / D), an n-point FFT counted as n log2 n multiplies (Crochiere &
+    # Rabiner 1983, ch. 7, for the DFT count; from memory); with O = 1 the shift is a roll, no
+    # phase product; with O > 1 a complex product per kept output, 2 kept / D
     from channelizer.planning.bank import bank_multiplies
 
     M, O, K, kept = 192, 1, 27, 5
     D = M // O
-    expect = 256 / 230 * (8 + 2 * O + O * np.log2(D) + kept * 8 / D) + 2 * kept / D
+    expect = 256 / 230 * (8 + 2 * O + O * np.log2(D) + kept * 8 / D)
     assert bank_multiplies(K, M, O, kept) == pytest.approx(expect, rel=1e-12)
+    # O = 2: 8 K O = 432, whose nearest power of two on a log scale is 512; S the multiple of O
+    # up to N - K O + 1 = 459, so 458; D = 96
+    N2, S2 = 512, 458
+    expect2 = N2 / S2 * (np.log2(N2) + 4 + 2 * np.log2(96) + kept * np.log2(N2) / 96) + 2 * kept / 96
+    assert bank_multiplies(K, M, 2, kept) == pytest.approx(expect2, rel=1e-12)
     # short prototypes on few bins run by element-wise passes: K O + M log2 M / D + phase
     assert bank_multiplies(3, 16, 2, 16) == pytest.approx(6 + 16 * 4 / 8 + 2 * 16 / 8, rel=1e-12)
     # the FFT path's count hardly grows with the prototype: twice K adds under a fifth
@@ -137,5 +143,5 @@ def test_bank_cost_counts_the_engine_s_fft_path():
     K = len(plan.prototype) // M
     N = max(64, 2 ** int(np.round(np.log2(8 * K * O))))
     S = N - K * O + 1
-    want = N / S * (np.log2(N) + 2 * O + O * np.log2(D) + 5 * np.log2(N) / D) + 2 * 5 / D
+    want = N / S * (np.log2(N) + 2 * O + O * np.log2(D) + 5 * np.log2(N) / D)
     assert plan.predicted["bank_multiplies_per_input_sample"] == pytest.approx(want, abs=1e-5)

@@ -75,14 +75,15 @@ def bank_multiplies(K, M, O, kept):
     ``D`` transforms of ``N`` points along time, ``N O D`` complex products, ``N O``
     transforms of ``D`` points and ``kept`` inverse transforms of ``N`` points, i.e.
     ``(N / S) (log2 N + 2 O + O log2 D + kept log2 N / D)``, whatever ``K``.  Both
-    add the shift phase, a complex product per kept output: ``2 kept / D``.
+    add the shift phase, a complex product per kept output: ``2 kept / D``, except
+    the FFT path with ``O = 1``, which takes the shift as a roll of the frame.
     """
     D = M // O
     phase = 2.0 * kept / D
     if bank_method(K, O, M) == "direct":
         return K * O + M * math.log2(M) / D + phase
     N, S = fft_frame(K, O)
-    return N / S * (math.log2(N) + 2 * O + O * math.log2(D) + kept * math.log2(N) / D) + phase
+    return N / S * (math.log2(N) + 2 * O + O * math.log2(D) + kept * math.log2(N) / D) + (phase if O > 1 else 0.0)
 
 
 def is_bank_data(data):
