@@ -180,7 +180,7 @@ def format_report(report):
         "one_channel_realtime": "one channel speed / real time",
         "command_realtime": "whole command speed / real time",
         "command_speedup_vs_reference": "whole command speed / reference speed",
-        "workers_speedup": "dask workers speed / one process on one thread",
+        "workers_speedup": "dask workers speed / one-thread speed",
     }
     for key, t in report.targets.items():
         lines.append(f"  {labels.get(key, key):<44}{t['value']:>9.2f}  {t['sense']} {t['limit']:g}  {_mark(t)}")
