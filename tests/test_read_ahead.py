@@ -97,3 +97,39 @@ def test_the_second_thread_follows_the_consumer_s_error_settings():
             list(read_ahead(range(2), side))
     with np.errstate(over="ignore"):
         assert list(read_ahead(range(2), side)) == [0, 1]
+
+
+def test_long_outputs_spectrum_from_a_fixed_budget_of_segments(tmp_path):
+    # the output spectrum's cost stays bounded: OUTPUT_SEGMENTS periodograms spread evenly over a
+    # long output, each as scipy.signal.get_window's periodic Hann and numpy's FFT give it
+    # (Welch 1967, modified periodogram averaged; from memory)
+    import scipy.signal
+
+    from channelizer.io.sigmf_writer import write_sigmf
+    from channelizer.planning.planner import plan_chain
+    from channelizer.planning.spec import ChainSpec
+
+    fs = 1e6
+    plan_file = tmp_path / "half.yaml"
+    plan_file.write_text(plan_chain(ChainSpec(input_rate=fs, bandwidth=380e3, output_rate=500e3)).plan.to_yaml())
+    n = 1_400_000
+    rng = np.random.default_rng(5)
+    x = (0.1 * (rng.standard_normal(n) + 1j * rng.standard_normal(n))).astype(np.complex64)
+    base = tmp_path / "long"
+    write_sigmf(base, x, datatype="cf32_le", fs=fs, center_frequency=100e6)
+    plan, ident = load_plan_file(str(plan_file))
+    res = extract_channels(open_capture(str(base) + ".sigmf-meta"), [ChannelRequest("c", 0.0, plan, ident, str(plan_file))],
+                           str(tmp_path / "out"))
+    y = np.fromfile(tmp_path / "out" / "c.sigmf-data", np.complex64)
+    spec = res.channels[0].spectrum
+    n_out = y.size
+    assert n_out == 700_000  # a length-1.4M sequence decimated by 2 (common practice)
+    nper = spec.nperseg
+    # segments start every n_out // budget samples (wider than the half-overlap hop here)
+    hop = n_out // processor.OUTPUT_SEGMENTS
+    assert hop > nper // 2
+    assert spec.segments == (n_out - nper) // hop + 1 <= processor.OUTPUT_SEGMENTS
+    w = scipy.signal.get_window("hann", nper)
+    segs = np.stack([y[j * hop : j * hop + nper] for j in range(spec.segments)]).astype(np.complex128)
+    ref = np.fft.fftshift((np.abs(np.fft.fft(segs * w, axis=1)) ** 2).mean(axis=0) / (500e3 * np.dot(w, w)))
+    assert np.allclose(spec.psd, ref, rtol=1e-4)

@@ -20,7 +20,7 @@ import numpy as np
 from ..io.atomic import FileSet, write_text_atomic
 from ..errors import ChannelizerError
 from ..io.names import check_output_names, safe_output_name
-from ..dsp.spectrum import WelchAccumulator, _segment_length
+from ..dsp.spectrum import _segment_length
 from ..dsp.spaced_welch import SpacedWelch
 from ..planning.response import impulse_seconds
 from ..planning.stages import chain_rates
@@ -37,6 +37,10 @@ DEFAULT_BLOCK = 1 << 20
 #: above the floor; on 1 s of 61.44 Msps their transforms (16384 points for a 200 kHz channel)
 #: took as long as reading and converting the capture, so 512 made the reading thread the slower one.
 OVERVIEW_SEGMENTS = 256
+#: Segments of each channel's output spectrum: the ordinary half-overlapped Welch average while
+#: the output holds fewer (about 256 x 2048 samples), the same budget spread over longer outputs,
+#: so that the spectra of an hour's run cost what those of a minute's do.
+OUTPUT_SEGMENTS = 256
 #: Largest block: each channel holds a few arrays of this many samples.
 MAX_BLOCK = 1 << 24
 #: The files a run writes for itself, and those each channel NAME writes (NAME + suffix).
@@ -294,7 +298,8 @@ class _Pass:
             nper = 1 << max(4, min(12, int(math.log2(max(n_out // 8, 16)))))
             ok = spectra and n_out >= nper
             self.out_spectra.append(
-                WelchAccumulator(fs=r.plan.output_rate, nperseg=nper, center_frequency=centre + r.offset) if ok else None
+                SpacedWelch(fs=r.plan.output_rate, nperseg=nper, total=n_out, segments=OUTPUT_SEGMENTS,
+                            center_frequency=centre + r.offset) if ok else None
             )
         self.power = [0.0] * len(requests)  # over the settled outputs
         self.count = [0] * len(requests)
