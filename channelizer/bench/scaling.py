@@ -38,8 +38,8 @@ def _samples(folder, names):
 
 def time_workers(capture_path, requests, work_dir, *, workers, repeats=3):
     """Best times of one process and of ``workers`` dask workers on the same job; a dict."""
-    from ..run.chunks import aligned_block_size, balanced_chunk_blocks, chunk_layout
-    from ..run.distributed import CHUNK_BLOCKS, check_cluster_options, cluster_client, run_on_client, worker_slots
+    from ..run.chunks import aligned_block_size
+    from ..run.distributed import check_cluster_options, cluster_client, cluster_layout, run_on_client, worker_slots
 
     check_cluster_options(workers=workers)
     one_dir, many_dir = os.path.join(work_dir, "one-process"), os.path.join(work_dir, "workers")
@@ -66,8 +66,7 @@ def time_workers(capture_path, requests, work_dir, *, workers, repeats=3):
     chains = [r.plan.stages for r in requests]
     cap = open_capture(capture_path)
     block = aligned_block_size(chains, 1 << 20)
-    per_chunk = balanced_chunk_blocks(-(-cap.num_samples // block), workers=slots, max_blocks=CHUNK_BLOCKS)
-    layout = chunk_layout(chains, cap.num_samples, chunk_samples=per_chunk * block, block_size=block)
+    layout = cluster_layout(chains, cap.num_samples, block_size=block, slots=slots)
     return {
         "workers": workers,
         "channels": len(requests),

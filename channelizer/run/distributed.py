@@ -26,8 +26,8 @@ from ..planning.stages import CicStage
 from .chunk_pass import ChunkJob, portable_capture, run_chunk
 from .chunks import balanced_chunk_blocks, chunk_layout
 
-__all__ = ["INSTALL_HINT", "CHUNK_BLOCKS", "check_cluster_options", "cluster_client", "distributed_runner", "run_on_client",
-           "worker_slots"]
+__all__ = ["INSTALL_HINT", "CHUNK_BLOCKS", "check_cluster_options", "cluster_client", "cluster_layout", "distributed_runner",
+           "run_on_client", "worker_slots"]
 
 INSTALL_HINT = (
     "--workers and --scheduler need dask.distributed, an optional extra: "
@@ -127,13 +127,8 @@ def run_on_client(client, one, out_dir, files, *, output_format, nonfinite, prog
     ``task`` is the function each chunk runs (:func:`run_chunk`; a test may wrap it).
     """
     cap = one.capture
-    if chunk_samples is None:
-        blocks = -(-cap.num_samples // one.block_size)
-        chunk = one.block_size * balanced_chunk_blocks(blocks, workers=worker_slots(client), max_blocks=CHUNK_BLOCKS)
-    else:
-        chunk = chunk_samples
-    layout = chunk_layout([r.plan.stages for r in one.requests], cap.num_samples, chunk_samples=chunk,
-                          block_size=one.block_size)
+    layout = cluster_layout([r.plan.stages for r in one.requests], cap.num_samples, block_size=one.block_size,
+                            slots=worker_slots(client), chunk_samples=chunk_samples)
     shipped = portable_capture(cap)
     size = os.stat(shipped.data_path).st_size
     # pruned bit-true CIC integrators carry the whole history: those chunks follow one another
@@ -167,6 +162,18 @@ def run_on_client(client, one, out_dir, files, *, output_format, nonfinite, prog
         for fut in futures:
             if fut is not None:
                 fut.cancel()
+
+
+def cluster_layout(chains, total, *, block_size, slots, chunk_samples=None):
+    """Chunks of ``total`` input samples for a cluster that runs ``slots`` tasks at once.
+
+    Whole blocks of the pass, as many per chunk as :func:`~channelizer.run.chunks.balanced_chunk_blocks`
+    finds best for ``slots`` (at most ``CHUNK_BLOCKS``), or ``chunk_samples`` when given.
+    """
+    if chunk_samples is None:
+        blocks = balanced_chunk_blocks(-(-total // block_size), workers=slots, max_blocks=CHUNK_BLOCKS)
+        chunk_samples = block_size * blocks
+    return chunk_layout(chains, total, chunk_samples=chunk_samples, block_size=block_size)
 
 
 def worker_slots(client):

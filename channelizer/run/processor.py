@@ -244,9 +244,8 @@ def extract_channels(
     names = check_requests(capture, requests, bit_true=bit_true, **({} if block_size is None else {"block_size": block_size}))
     _prepare_out_dir(out_dir)
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
-                audit_resolution=audit_resolution, engine=engine)
+                audit_resolution=audit_resolution, engine=engine, read_ahead=read_ahead)
     one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
-    one.read_ahead = bool(read_ahead)
     own_set = fileset is None
     files = FileSet() if own_set else fileset
     t0 = time.perf_counter()
@@ -266,9 +265,9 @@ class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
     def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None,
-                 engine=None, start_index=0):
+                 engine=None, start_index=0, read_ahead=True):
         self.capture, self.requests, self.names = capture, requests, names
-        self.bit_true, self.block_size = bit_true, block_size
+        self.bit_true, self.block_size, self.read_ahead = bit_true, block_size, bool(read_ahead)
         fs = capture.sample_rate
         centre = capture.center_frequency or 0.0
         if bit_true:
@@ -307,7 +306,6 @@ class _Pass:
         self.settle = [int(math.ceil(impulse_seconds(r.plan.stages, fs=fs) * r.plan.output_rate)) for r in requests]
         self.peak = [0.0] * len(requests)
         self.writers = []
-        self.read_ahead = True
 
     def _raw_integers(self, block):
         """A bit-true block's integers as int64, offset binary made signed."""
