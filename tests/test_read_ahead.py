@@ -14,6 +14,7 @@ from channelizer.run.processor import ChannelRequest, extract_channels
 
 
 def test_blocks_come_in_order_each_seen_by_side_first_on_another_thread():
+    # a prefetching reader hands on every item once, in order (common practice for double buffering)
     seen, threads = [], set()
 
     def side(b):
@@ -29,6 +30,7 @@ def test_blocks_come_in_order_each_seen_by_side_first_on_another_thread():
 
 
 def test_errors_reach_the_consumer_at_their_block():
+    # concurrent.futures re-raises a task's exception in the caller of result() (Python docs, from memory)
     def blocks():
         yield 1
         yield 2
@@ -52,6 +54,7 @@ def test_errors_reach_the_consumer_at_their_block():
 
 
 def test_a_consumer_that_stops_early_leaves_no_thread():
+    # closing a generator runs its with-blocks' exits (PEP 342, from memory): the pool is shut down
     before = threading.active_count()
     gen = read_ahead(iter(range(100)))
     assert next(gen) == 0
@@ -68,6 +71,7 @@ def _extract(path, plan_path, out, **kw):
 
 
 def test_pass_reading_ahead_equals_a_pass_reading_in_line(small_capture, plan_path, tmp_path, monkeypatch):
+    # the reference is the pass as written before, reading in line (common practice: a refactor keeps outputs bit for bit)
     ahead, ahead_data = _extract(small_capture, plan_path, tmp_path / "ahead")
 
     def in_line(blocks, side=None):  # the pass as it was: read, feed the spectrum, run, in one thread
@@ -89,6 +93,7 @@ def test_pass_reading_ahead_equals_a_pass_reading_in_line(small_capture, plan_pa
 
 
 def test_the_second_thread_follows_the_consumer_s_error_settings():
+    # numpy.errstate is a context variable, so it holds for one thread only (numpy docs, from memory)
     def side(b):
         np.float32(3e38) * np.float32(10)  # overflows float32
 
