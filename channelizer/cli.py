@@ -454,11 +454,26 @@ def _cmd_bench(args):
         for row in costs["rows"]:
             print(f"  {row['predicted']:7.2f} mult  {row['ns_per_sample']:7.2f} ns  {row['layout']:<28} {row['spec']}")
         print(f"  ranking {'agrees' if costs['agree'] else 'DIFFERS'} (Spearman {costs['spearman']:.2f})\n")
+        from .bench.engine_cost import ranking_check
+
+        ranking = ranking_check()
+        print("planner's choice (fewest FIR multiplies, CIC free) against the fewest engine multiplies:")
+        for row in ranking:
+            c, f = row["chosen"], row["fewest"]
+            line = f"  {row['decimation']:7.1f}x  {c['layout']:<24} fir {c['fir']:6.3f} engine {c['engine']:6.2f}"
+            if "ratio" in row:
+                line += (f"  {row['chosen_ns']:5.2f} ns | {f['layout']:<22} fir {f['fir']:6.3f} engine {f['engine']:6.2f}"
+                         f"  {row['fewest_ns']:5.2f} ns  time ratio {row['ratio']:.2f}")
+            else:
+                line += "  (the same chain)"
+            print(line)
+        print()
         report = run_benchmark(seconds=args.seconds or 2.0, channels=args.channels, progress=not args.quiet, workers=args.workers)
         print(format_report(report))
         doc = report.to_dict()
         doc["planner"] = planner
         doc["engine_cost"] = costs
+        doc["ranking"] = ranking
     if args.json:
         write_text_atomic(args.json, json.dumps(doc, indent=2) + "\n")
         print(f"figures written to {args.json}")

@@ -245,3 +245,24 @@ def test_engine_cost_counts_what_the_runners_do():
     fs = 61.44e6
     want = 1 + (4 * 48 + 1) / 49 + 85 / 245 + (60 / 3) / (245 * 5 / 3)
     assert engine_multiplies(stages, fs=fs) == pytest.approx(want, rel=1e-12)
+
+
+def test_ranking_check_times_the_fewest_engine_multiplies_where_it_differs():
+    # 20 MHz to 240 kHz: the planner's FIR-first choice is not the chain with the fewest
+    # engine multiplies (CIC counted as N (R M - 1) + 1 taps per output, Hogenauer 1981)
+    from channelizer.bench.engine_cost import RANKING_SPECS, ranking_check
+    from channelizer.planning.planner import plan_chain
+    from channelizer.planning.spec import ChainSpec
+
+    spec = dict(input_rate=20e6, bandwidth=150e3, output_rate=240e3)
+    assert spec in RANKING_SPECS
+    (row,) = ranking_check([spec], samples=4096, repeats=1)
+    res = plan_chain(ChainSpec(**spec))
+    meeting = [res.chosen] + [c for c in res.alternatives if c.meets]
+    assert row["chosen"]["layout"] == res.chosen.layout
+    assert row["fewest"]["engine"] == min(c.cost.total.multiplies_per_input_sample for c in meeting)
+    assert row["fewest"]["engine"] < row["chosen"]["engine"]
+    assert row["chosen"]["fir"] < row["fewest"]["fir"]
+    assert row["decimation"] == pytest.approx(20e6 / 240e3)  # common practice: input over output rate
+    assert row["ratio"] == pytest.approx(row["fewest_ns"] / row["chosen_ns"])
+    assert row["chosen_ns"] > 0 and row["fewest_ns"] > 0
