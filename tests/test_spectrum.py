@@ -469,3 +469,18 @@ def test_channel_list_names_and_values():
 def test_channel_list_rejects_bad_prefix(prefix):
     with pytest.raises(ChannelizerError, match="prefix"):
         channel_list_from_signals([make_signal(1e6, 1e3)], prefix=prefix)
+
+
+def test_median_equals_numpys():
+    # numpy.median (the reference): the middle value, or the mean of the two middle
+    # ones for an even count; NaN propagates
+    from channelizer.dsp.detection import median
+
+    rng = np.random.default_rng(3)
+    for n in (1, 2, 3, 4, 17, 64, 1001, 4096):
+        for x in (rng.standard_normal(n), rng.integers(0, 3, n).astype(float), rng.exponential(size=n) * 1e-12):
+            assert median(x) == np.median(x), n
+    assert median([1.0, np.inf, 2.0]) == np.median([1.0, np.inf, 2.0])
+    assert np.isnan(median([1.0, np.nan, 2.0]))
+    with pytest.raises(ValueError):
+        median([])

@@ -12,7 +12,7 @@ import numpy as np
 from ..io.progress import ProgressBar
 from ..dsp.spectrum import WelchAccumulator
 from ..dsp.spectrogram import SpectrogramAccumulator
-from ..dsp.detection import FLOOR_REGIONS, channel_list_from_signals, detect_signals, noise_floor_profile
+from ..dsp.detection import FLOOR_REGIONS, channel_list_from_signals, detect_signals, median, noise_floor_profile
 
 __all__ = ["SurveyResult", "survey_capture", "format_survey", "OCCUPIED_BANDWIDTH_DEFINITION", "UNSCALED_PEAK"]
 
@@ -93,8 +93,8 @@ def survey_capture(capture, *, resolution=None, threshold_db=10.0, block_size=1 
     psd = welch.result()
     floor = noise_floor_profile(psd)
     signals = detect_signals(psd, threshold_db=threshold_db, noise_floor=floor)
-    median = float(np.median(floor))
-    level = 10 * math.log10(median) if median > 0 else -math.inf
+    mid = median(floor)
+    level = 10 * math.log10(mid) if mid > 0 else -math.inf
     return SurveyResult(capture, psd, spec.result(), level, signals, threshold_db, floor, peak)
 
 
