@@ -121,6 +121,22 @@ def test_off_raster_frequency_names_the_nearest(bank, capture, tmp_path):
     assert not (tmp_path / "o").exists()
 
 
+
+def test_bank_and_chain_extractions_take_one_set_of_options(bank, capture, tmp_path):
+    # the bank path reads the chain path's options (RunOptions): an option neither
+    # knows is refused by both, and one the bank cannot honour is named
+    from channelizer.run.extraction import run_extraction
+
+    path, plan = bank
+    meta, _ = capture
+    with pytest.raises(TypeError, match="colour"):
+        run_bank_extraction(open_capture(meta), plan, str(tmp_path / "a"), colour="red")
+    with pytest.raises(TypeError, match="colour"):
+        run_extraction(open_capture(meta), [], str(tmp_path / "b"), colour="red")
+    with pytest.raises(ChannelizerError, match="runs in one process"):
+        run_bank_extraction(open_capture(meta), plan, str(tmp_path / "c"), **{"workers": 2})
+    assert not any((tmp_path / d).exists() for d in "abc")
+
 @pytest.mark.parametrize(
     "argv,msg",
     [

@@ -14,7 +14,7 @@ from ..io.channels import resolve_offset
 from ..planning.bank import BankPlan, is_bank_data
 from ..planning.plan import load_plan_text
 from ..units import format_hz
-from .extraction import read_plan_bytes, run_requests
+from .extraction import RunOptions, read_plan_bytes, run_requests
 from .processor import ChannelRequest, plan_identity
 
 __all__ = ["load_bank_plan_file", "raster_channel_name", "select_channels", "run_bank_extraction"]
@@ -59,36 +59,18 @@ def select_channels(plan, entries, *, center, plan_source="plan"):
     return out
 
 
-def run_bank_extraction(
-    capture,
-    plan,
-    out_dir,
-    *,
-    entries=(),
-    plan_id="",
-    plan_source="",
-    output_format="cf32_le",
-    bit_true=False,
-    plots=True,
-    progress=False,
-    nonfinite="error",
-    block_size=None,
-    audit=True,
-    trim_settling=False,
-    audit_resolution=None,
-    workers=None,
-    scheduler=None,
-    inputs=(),
-):
+def run_bank_extraction(capture, plan, out_dir, *, entries=(), plan_id="", plan_source="", **options):
     """Extract the raster channels of a :class:`BankPlan` (all, or ``entries``) in one pass.
 
     Returns the ExtractResult with ``summary.json`` written and, unless ``plots``
     is false, ``overview.png`` and one ``NAME.png`` per channel, as
-    :func:`channelizer.run.extraction.run_extraction` does.
+    :func:`channelizer.run.extraction.run_extraction` does, with the same ``options``
+    (:class:`~channelizer.run.extraction.RunOptions`).
     """
-    if bit_true:
+    opts = RunOptions(**options)
+    if opts.bit_true:
         raise ChannelizerError("--bit-true does not cover filter-bank plans yet; drop --bit-true or plan a chain")
-    if workers is not None or scheduler is not None:
+    if opts.workers is not None or opts.scheduler is not None:
         raise ChannelizerError("the filter-bank path runs in one process; drop --workers/--scheduler or plan a chain")
     if not math.isclose(capture.sample_rate, plan.input_rate, rel_tol=1e-9):
         raise ChannelizerError(
@@ -108,10 +90,5 @@ def run_bank_extraction(
         fine_stages=plan.stages,
         fs=plan.input_rate,
     )
-    kw = {"engine": engine, "trim_settling": trim_settling}
-    if block_size is not None:
-        kw["block_size"] = block_size
-    if audit_resolution is not None:
-        kw["audit_resolution"] = audit_resolution
-    reads = [capture.path, capture.data_path, *([plan_source] if plan_source else []), *inputs]
-    return run_requests(capture, requests, out_dir, (output_format, False, nonfinite, progress, plots, audit), kw, inputs=reads)
+    reads = [capture.path, capture.data_path, *([plan_source] if plan_source else []), *opts.inputs]
+    return run_requests(capture, requests, out_dir, opts, inputs=reads, engine=engine)

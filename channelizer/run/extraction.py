@@ -3,6 +3,7 @@
 Used by the ``extract`` command and the demo; the command line only parses.
 """
 
+from dataclasses import dataclass
 import math
 import os
 
@@ -16,7 +17,63 @@ from ..units import format_hz
 from .output_folder import check_run_folder
 from .processor import ChannelRequest, check_requests, extract_channels, plan_identity, write_summary
 
-__all__ = ["load_plan_file", "run_extraction"]
+__all__ = ["RunOptions", "load_plan_file", "run_extraction"]
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """How an extraction runs and what it writes: the keyword options of
+    :func:`run_extraction` and :func:`channelizer.run.bank_extraction.run_bank_extraction`.
+
+    Attributes
+    ----------
+    output_format : str
+        SigMF datatype of the channel recordings (``cf32_le`` by default).
+    bit_true : bool
+        Run the integer model of the plan instead of the float engine.
+    plots : bool
+        Write ``overview.png`` and one ``NAME.png`` per channel.
+    progress : bool
+        Show a progress bar on a terminal.
+    nonfinite : {'error', 'zero'}
+        Refuse a capture holding NaN or infinity, or replace those samples by zero.
+    block_size : int, optional
+        Input samples per block (the outputs do not depend on it).
+    audit : bool
+        Run the alias audit against the input spectrum.
+    trim_settling : bool
+        Drop each channel's first outputs, before its chain has settled.
+    audit_resolution : float, optional
+        Resolution in Hz of the input spectrum the audit reads.
+    workers : int, optional
+        Run on a local dask.distributed cluster of this many processes.
+    scheduler : str, optional
+        Run on the dask.distributed cluster at this address.
+    inputs : sequence of str
+        Further files the run reads (a channel list): never written.
+    """
+
+    output_format: str = "cf32_le"
+    bit_true: bool = False
+    plots: bool = True
+    progress: bool = False
+    nonfinite: str = "error"
+    block_size: int | None = None
+    audit: bool = True
+    trim_settling: bool = False
+    audit_resolution: float | None = None
+    workers: int | None = None
+    scheduler: str | None = None
+    inputs: tuple = ()
+
+    def pass_keywords(self):
+        """The keywords of :func:`extract_channels` these options set (block size, settling, audit resolution)."""
+        kw = {"trim_settling": self.trim_settling}
+        if self.block_size is not None:
+            kw["block_size"] = self.block_size
+        if self.audit_resolution is not None:
+            kw["audit_resolution"] = self.audit_resolution
+        return kw
 
 
 def load_plan_file(path):
@@ -33,26 +90,7 @@ def read_plan_bytes(path):
     return data
 
 
-def run_extraction(
-    capture,
-    entries,
-    out_dir,
-    *,
-    plan_path=None,
-    base_dir=".",
-    output_format="cf32_le",
-    bit_true=False,
-    plots=True,
-    progress=False,
-    nonfinite="error",
-    block_size=None,
-    audit=True,
-    trim_settling=False,
-    audit_resolution=None,
-    workers=None,
-    scheduler=None,
-    inputs=(),
-):
+def run_extraction(capture, entries, out_dir, *, plan_path=None, base_dir=".", **options):
     """Extract ``entries`` (ChannelEntry) from an open capture into ``out_dir``.
 
     A channel's own plan path (from a channel list) is read relative to
@@ -66,12 +104,14 @@ def run_extraction(
     ``out_dir`` then holds exactly this run: it must be missing, empty or an earlier
     run (:func:`channelizer.run.output_folder.check_run_folder`), which is replaced
     as a whole, and it may not be or hold any input (the capture, the plans, and
-    ``inputs``, e.g. the channel list).
+    ``inputs``, e.g. the channel list).  ``options`` are the fields of
+    :class:`RunOptions`; an unknown one raises ``TypeError``.
     """
-    if workers is not None or scheduler is not None:
+    opts = RunOptions(**options)
+    if opts.workers is not None or opts.scheduler is not None:
         from .distributed import check_cluster_options
 
-        check_cluster_options(workers, scheduler)
+        check_cluster_options(opts.workers, opts.scheduler)
     plans = {}
     requests = []
     warnings = []
@@ -88,41 +128,37 @@ def run_extraction(
                 f"{os.path.basename(path)} ({format_hz(plan.bandwidth)}); its edges will be cut"
             )
         requests.append(ChannelRequest(e.name, _offset(e, capture), plan, ident, path))
-    kw = {} if block_size is None else {"block_size": block_size}
-    kw["trim_settling"] = trim_settling
-    if audit_resolution is not None:
-        kw["audit_resolution"] = audit_resolution
-    if workers is not None or scheduler is not None:
+    kw = {}
+    if opts.workers is not None or opts.scheduler is not None:
         from .distributed import distributed_runner
 
-        kw["runner"] = distributed_runner(workers=workers, scheduler=scheduler)
-    result = run_requests(capture, requests, out_dir, (output_format, bit_true, nonfinite, progress, plots, audit), kw,
-                          inputs=[capture.path, capture.data_path, *plans, *inputs])
+        kw["runner"] = distributed_runner(workers=opts.workers, scheduler=opts.scheduler)
+    result = run_requests(capture, requests, out_dir, opts, inputs=[capture.path, capture.data_path, *plans, *opts.inputs], **kw)
     result.warnings = warnings
     return result
 
 
-def run_requests(capture, requests, out_dir, options, kw, *, inputs):
+def run_requests(capture, requests, out_dir, options, *, inputs, **engine):
     """Extract ``requests``, write the summary and the plots: the whole run, or nothing.
 
-    ``options`` is ``(output_format, bit_true, nonfinite, progress, plots, audit)``;
-    ``kw`` goes to :func:`extract_channels` (block size, engine or runner, settling,
-    audit resolution); ``inputs`` are the files the run reads, never to be written.
+    ``options`` is a :class:`RunOptions`; ``engine`` (``engine=`` or ``runner=``) goes
+    to :func:`extract_channels` with the options' own keywords; ``inputs`` are the
+    files the run reads, never to be written.
     """
-    output_format, bit_true, nonfinite, progress, plots, audit = options
-    check_requests(capture, requests, bit_true=bit_true, **({"block_size": kw["block_size"]} if "block_size" in kw else {}))
+    kw = {**options.pass_keywords(), **engine}
+    check_requests(capture, requests, bit_true=options.bit_true, **({"block_size": kw["block_size"]} if "block_size" in kw else {}))
     check_outputs(folders=[out_dir], inputs=inputs)
     # the whole run (recordings, summary, plots) is built in a hidden sibling folder and
     # replaces out_dir in one rename (channelizer.io.run_folder)
     with StagedFolder(out_dir, kind="run", check=check_run_folder).writing() as stage:
         files = FileSet()
         try:
-            result = _extract_and_summarise(capture, requests, stage, files, output_format, bit_true, nonfinite, progress, plots, audit, kw)
+            result = _extract_and_summarise(capture, requests, stage, files, options, kw)
             files.commit()
         except BaseException:
             files.abort()
             raise
-        if plots:
+        if options.plots:
             _plot(result, requests, capture, stage)
     result.summary_path = os.path.join(out_dir, os.path.basename(result.summary_path))
     return result
@@ -143,20 +179,20 @@ def _offset(entry, capture):
     return offset
 
 
-def _extract_and_summarise(capture, requests, out_dir, files, output_format, bit_true, nonfinite, progress, plots, audit, kw):
+def _extract_and_summarise(capture, requests, out_dir, files, options, kw):
     result = extract_channels(
         capture,
         requests,
         out_dir,
-        output_format=output_format,
-        bit_true=bit_true,
-        nonfinite=nonfinite,
-        progress=progress,
-        spectra=plots or audit,
+        output_format=options.output_format,
+        bit_true=options.bit_true,
+        nonfinite=options.nonfinite,
+        progress=options.progress,
+        spectra=options.plots or options.audit,
         fileset=files,
         **kw,
     )
-    if audit and result.overview is not None:
+    if options.audit and result.overview is not None:
         from ..checks.alias_audit import audit_channel
 
         for req, ch in zip(requests, result.channels):
