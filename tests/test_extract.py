@@ -187,3 +187,24 @@ def test_refusals_name_the_numbers(plan_file, capture, tmp_path, capsys):
     err = capsys.readouterr().err
     assert "2.4 Msps" in err and "1 Msps" in err
     assert not (tmp_path / "o2" / "x.sigmf-meta").exists()
+
+
+def test_run_without_plots_audits_without_output_spectra(plan_file, capture, tmp_path):
+    # the alias audit reads the input spectrum only; each channel's output spectrum
+    # serves its plot, so a run without plots leaves it out
+    path, _ = plan_file
+    cap_path, _ = capture
+    entries = [ChannelEntry("t", 150e3 + 1e3, True)]
+    quiet = run_extraction(open_capture(cap_path), entries, str(tmp_path / "q"), plan_path=path, plots=False)
+    assert quiet.overview is not None  # what the audit reads
+    assert quiet.channels[0].spectrum is None
+    from channelizer.run.processor import ChannelRequest, extract_channels
+    from channelizer.run.extraction import load_plan_file
+
+    plan, ident = load_plan_file(path)
+    req = [ChannelRequest("t", 151e3, plan, ident, path)]
+    full = extract_channels(open_capture(cap_path), req, str(tmp_path / "f"))
+    assert full.channels[0].spectrum is not None
+    no_out = extract_channels(open_capture(cap_path), req, str(tmp_path / "n"), channel_spectra=False)
+    assert no_out.channels[0].spectrum is None and no_out.overview is not None
+    np.testing.assert_array_equal(no_out.overview.psd, full.overview.psd)

@@ -189,6 +189,7 @@ def _extract_and_summarise(capture, requests, out_dir, files, options, kw):
         nonfinite=options.nonfinite,
         progress=options.progress,
         spectra=options.plots or options.audit,
+        channel_spectra=options.plots,  # only the plots read them; the audit reads the input spectrum
         fileset=files,
         **kw,
     )

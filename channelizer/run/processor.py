@@ -182,6 +182,7 @@ def extract_channels(
     nonfinite="error",
     progress=False,
     spectra=True,
+    channel_spectra=None,
     fileset=None,
     trim_settling=False,
     audit_resolution=None,
@@ -209,7 +210,13 @@ def extract_channels(
     progress : bool
         Show a progress bar on stderr (when it is a terminal).
     spectra : bool
-        Accumulate the input and output spectra for the plots.
+        Accumulate the input spectrum (for the alias audit and the overview plot)
+        and, unless ``channel_spectra`` says otherwise, each channel's output
+        spectrum (for its plot).
+    channel_spectra : bool, optional
+        Accumulate each channel's output spectrum (``ChannelResult.spectrum``); by
+        default as ``spectra``.  The audit reads only the input spectrum, so a run
+        without plots leaves these out.
     fileset : channelizer.atomic.FileSet, optional
         Leave the recordings uncommitted in this set (the caller adds the summary
         and commits, so that all outputs of a run appear together); by default
@@ -244,6 +251,7 @@ def extract_channels(
     names = check_requests(capture, requests, bit_true=bit_true, **({} if block_size is None else {"block_size": block_size}))
     _prepare_out_dir(out_dir)
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
+                channel_spectra=spectra if channel_spectra is None else bool(channel_spectra),
                 audit_resolution=audit_resolution, engine=engine, read_ahead=read_ahead)
     one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
     own_set = fileset is None
@@ -264,8 +272,8 @@ def extract_channels(
 class _Pass:
     """One read of a capture through every channel's chain, with its accumulators."""
 
-    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, audit_resolution=None,
-                 engine=None, start_index=0, read_ahead=True):
+    def __init__(self, capture, requests, names, *, bit_true, block_size, spectra, channel_spectra=None,
+                 audit_resolution=None, engine=None, start_index=0, read_ahead=True):
         self.capture, self.requests, self.names = capture, requests, names
         self.bit_true, self.block_size, self.read_ahead = bit_true, block_size, bool(read_ahead)
         fs = capture.sample_rate
@@ -295,7 +303,7 @@ class _Pass:
         for r in requests:
             n_out = int(n_total * r.plan.output_rate / fs)
             nper = 1 << max(4, min(12, int(math.log2(max(n_out // 8, 16)))))
-            ok = spectra and n_out >= nper
+            ok = (spectra if channel_spectra is None else channel_spectra) and n_out >= nper
             self.out_spectra.append(
                 SpacedWelch(fs=r.plan.output_rate, nperseg=nper, total=n_out, segments=OUTPUT_SEGMENTS,
                             center_frequency=centre + r.offset) if ok else None
