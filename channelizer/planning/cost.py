@@ -55,10 +55,10 @@ class ChainCost:
         ``cpu`` ranks by the FIR multiplies (CIC free) first, then by what the float
         engine computes, CIC included.  The engine's CIC work is about ``N M``
         multiplies per input sample whatever its decimation, so a count-first
-        ranking mostly trades CIC order against FIR length; on the hand-design specs
-        of the tests that trade measured within about 15 % either way in the engine
-        (small filters run at a lower speed per multiply than long ones), while it
-        made one chain's FIR work 1.7 times the hand design's.
+        ranking mostly trades CIC order against FIR length.  On the hand-design
+        specs it would choose another chain twice, at 1.9 and 2.7 times the FIR
+        work, and those chains ran at 0.90 to 1.06 times the chosen ones' time
+        (``channelizer bench`` times both: :func:`channelizer.bench.engine_cost.ranking_check`).
         """
         t = self.total
         if self.objective == "hardware":
