@@ -14,10 +14,13 @@ _BLAS_PRESET = os.environ.get("OPENBLAS_NUM_THREADS")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 if _BLAS_PRESET is None and "numpy" in sys.modules:
     # numpy came first: OpenBLAS chose its thread count before the setting above, so the
-    # engines must not assume one thread (channelizer/engines/streaming.py).  Processes
-    # started from here inherit the mark and cut their products the same way, so a
-    # distributed run still equals this process's bit for bit.
-    os.environ["CHANNELIZER_BLAS_THREADS"] = "several"
+    # engines set it to one around each product, or cut their products small where
+    # they cannot (channelizer/engines/blas_threads.py).  Processes started from here
+    # inherit the mark and cut their products the same way, so a distributed run still
+    # equals this process's bit for bit.
+    from .engines.blas_threads import mark_numpy_came_first
+
+    mark_numpy_came_first()
 
 __version__ = "0.1.0"
 

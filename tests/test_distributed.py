@@ -303,7 +303,7 @@ def test_bench_workers_figures(scene, tmp_path):
 
 
 _BLAS_PROBE = """
-import ctypes, glob, json, os, sys
+import ctypes, glob, hashlib, json, os, sys
 first = sys.argv[1]
 if first == "numpy":
     import numpy
@@ -311,28 +311,77 @@ import channelizer
 from channelizer.engines import streaming
 import numpy as np
 libs = glob.glob(os.path.join(os.path.dirname(np.__file__), "..", "numpy.libs", "*openblas*"))
-threads = None
+count = None
+has_local = False
 for lib in libs:
     dll = ctypes.CDLL(lib)
+    has_local = has_local or hasattr(dll, "openblas_set_num_threads_local")
     for name in ("scipy_openblas_get_num_threads64_", "openblas_get_num_threads64_", "openblas_get_num_threads"):
         if hasattr(dll, name):
-            threads = getattr(dll, name)()
-print(json.dumps({"one_thread": streaming._BLAS_ONE_THREAD, "threads": threads}))
+            count = getattr(dll, name)
+threads = None if count is None else count()
+rng = np.random.default_rng(4)
+x = (rng.standard_normal(1 << 18) + 1j * rng.standard_normal(1 << 18)).astype(np.complex64)
+fir = streaming.FirDecimator(rng.standard_normal(301), 5)
+y = np.concatenate([fir.process(b) for b in np.array_split(x, 3)])
+print(json.dumps({"one_thread": streaming._BLAS_ONE_THREAD, "threads": threads,
+                  "threads_after": None if count is None else count(),
+                  "mode": os.environ.get("CHANNELIZER_BLAS_THREADS"), "has_local": has_local,
+                  "digest": hashlib.sha256(y.tobytes()).hexdigest()}))
 """
 
 
-@pytest.mark.parametrize("first", ["channelizer", "numpy"])
-def test_engines_know_whether_blas_runs_on_one_thread(first):
-    # The block products are cut by whether OpenBLAS runs on one thread, and a distributed
-    # run equals one process only when both cut them alike.  OpenBLAS reads
-    # OPENBLAS_NUM_THREADS once, when numpy loads it (OpenBLAS documentation, from memory):
-    # imported after numpy, channelizer's setting comes too late and must not be trusted.
+def _blas_probe(first):
     env = {k: v for k, v in os.environ.items() if k not in ("OPENBLAS_NUM_THREADS", "CHANNELIZER_BLAS_THREADS")}
     env["PYTHONPATH"] = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
     run = subprocess.run([sys.executable, "-c", _BLAS_PROBE, first], capture_output=True, text=True, env=env,
                          timeout=120)
     assert run.returncode == 0, run.stderr
-    got = json.loads(run.stdout.strip().splitlines()[-1])
-    if got["threads"] is not None and got["one_thread"]:
-        assert got["threads"] == 1  # OpenBLAS's own count, where numpy's build exposes it
-    assert got["one_thread"] == (first == "channelizer")
+    return json.loads(run.stdout.strip().splitlines()[-1])
+
+
+def test_engines_know_whether_blas_runs_on_one_thread():
+    # The block products are cut by whether OpenBLAS runs them on one thread, and a
+    # distributed run equals one process only when both cut them alike.  OpenBLAS reads
+    # OPENBLAS_NUM_THREADS once, when numpy loads it (OpenBLAS documentation, from
+    # memory): imported after numpy, channelizer's setting comes too late, so each
+    # product then sets one thread through openblas_set_num_threads_local and puts the
+    # count back, or, without that function, the products are cut small.
+    pinned, late = _blas_probe("channelizer"), _blas_probe("numpy")
+    assert pinned["mode"] is None and pinned["one_thread"]
+    if pinned["threads"] is not None:
+        assert pinned["threads"] == 1  # OpenBLAS's own count, where numpy's build exposes it
+    assert late["mode"] in ("each-product", "several")
+    assert late["one_thread"] == (late["mode"] == "each-product")
+    if late["mode"] == "each-product":
+        # cut alike, the two processes compute the same products: the same bits
+        assert late["digest"] == pinned["digest"]
+        if late["threads"] is not None:
+            assert late["threads_after"] == late["threads"]  # the caller's count put back
+    if late["has_local"]:
+        # numpy's wheel bundles an OpenBLAS that has the function (numpy 2.4 here): the
+        # late case must then set the count per product, not cut small
+        assert late["mode"] == "each-product"
+
+
+def test_one_thread_context_saves_and_restores_the_count_once():
+    # nested or concurrent products share one saved count: the first to enter sets one
+    # thread and keeps what it replaced, the last to leave puts that back
+    from channelizer.engines.blas_threads import OneThread
+
+    calls, state = [], {"n": 6}
+
+    def setter(n):
+        calls.append(n)
+        prev, state["n"] = state["n"], n
+        return prev
+
+    ctx = OneThread(setter)
+    with ctx:
+        assert state["n"] == 1
+        with ctx:
+            assert state["n"] == 1
+        assert state["n"] == 1
+    assert state["n"] == 6 and calls == [1, 6]
+    with OneThread(None):  # no setter: nothing to do
+        pass

@@ -39,6 +39,7 @@ import numpy as np
 
 from ..errors import ChannelizerError
 from ..planning.stages import is_halfband
+from . import blas_threads
 
 __all__ = [
     "FirDecimator",
@@ -157,10 +158,12 @@ class _Rotator:
 # calls by up to a factor of 300 in our measurements, so every product is cut into
 # pieces that stay single-threaded.  With the OpenBLAS 0.3.31 that numpy 2.4 ships,
 # complex products ran on one thread for m n k < 65536 and on two from 65536 on.
-# OpenBLAS is on one thread only when OPENBLAS_NUM_THREADS=1 was set before numpy loaded it
-# (channelizer/__init__.py marks the case where numpy came first).
-_BLAS_ONE_THREAD = (os.environ.get("OPENBLAS_NUM_THREADS") == "1"
-                    and os.environ.get("CHANNELIZER_BLAS_THREADS") != "several")
+# OpenBLAS is on one thread when OPENBLAS_NUM_THREADS=1 was set before numpy loaded it;
+# where numpy came first, each product sets one thread while it runs, or, where it
+# cannot, the products are cut small (channelizer/engines/blas_threads.py).
+_BLAS_MODE = os.environ.get(blas_threads.MARK)
+_BLAS_ONE_THREAD = os.environ.get("OPENBLAS_NUM_THREADS") == "1" and _BLAS_MODE != blas_threads.SEVERAL
+_ONE_THREAD = blas_threads.OneThread(blas_threads.find_thread_setter() if _BLAS_MODE == blas_threads.EACH_PRODUCT else None)
 _BLAS_SINGLE_THREAD_MNK = 1 << 22 if _BLAS_ONE_THREAD else 65535
 _DIRECT_BLOCK = 16384  # blocks up to this many samples are copied into one buffer
 
@@ -220,9 +223,10 @@ class _BlockFir:
         P = self._P
         rows = out.shape[0]
         step = self._chunk_rows
-        for r0 in range(0, rows, step):
-            r1 = min(rows, r0 + step)
-            np.matmul(samples[r0 * P : r1 * P].reshape(r1 - r0, P), self._G, out=out[r0:r1])
+        with _ONE_THREAD:
+            for r0 in range(0, rows, step):
+                r1 = min(rows, r0 + step)
+                np.matmul(samples[r0 * P : r1 * P].reshape(r1 - r0, P), self._G, out=out[r0:r1])
 
     def run(self, x):
         """Feed ``x`` (1-D complex64, may be strided); return the outputs now due."""
