@@ -70,7 +70,7 @@ def run_bank_extraction(capture, plan, out_dir, *, entries=(), plan_id="", plan_
     opts = RunOptions(**options)
     if opts.bit_true:
         raise ChannelizerError("--bit-true does not cover filter-bank plans yet; drop --bit-true or plan a chain")
-    if opts.workers is not None or opts.scheduler is not None:
+    if opts.on_cluster:
         raise ChannelizerError("the filter-bank path runs in one process; drop --workers/--scheduler or plan a chain")
     if not math.isclose(capture.sample_rate, plan.input_rate, rel_tol=1e-9):
         raise ChannelizerError(

@@ -66,6 +66,11 @@ class RunOptions:
     scheduler: str | None = None
     inputs: tuple = ()
 
+    @property
+    def on_cluster(self):
+        """Whether the pass runs on dask.distributed (``workers`` or ``scheduler`` given)."""
+        return self.workers is not None or self.scheduler is not None
+
     def pass_keywords(self):
         """The keywords of :func:`extract_channels` these options set (block size, settling, audit resolution)."""
         kw = {"trim_settling": self.trim_settling}
@@ -108,7 +113,7 @@ def run_extraction(capture, entries, out_dir, *, plan_path=None, base_dir=".", *
     :class:`RunOptions`; an unknown one raises ``TypeError``.
     """
     opts = RunOptions(**options)
-    if opts.workers is not None or opts.scheduler is not None:
+    if opts.on_cluster:
         from .distributed import check_cluster_options
 
         check_cluster_options(opts.workers, opts.scheduler)
@@ -129,7 +134,7 @@ def run_extraction(capture, entries, out_dir, *, plan_path=None, base_dir=".", *
             )
         requests.append(ChannelRequest(e.name, _offset(e, capture), plan, ident, path))
     kw = {}
-    if opts.workers is not None or opts.scheduler is not None:
+    if opts.on_cluster:
         from .distributed import distributed_runner
 
         kw["runner"] = distributed_runner(workers=opts.workers, scheduler=opts.scheduler)

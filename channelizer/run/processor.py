@@ -251,7 +251,7 @@ def extract_channels(
     names = check_requests(capture, requests, bit_true=bit_true, **({} if block_size is None else {"block_size": block_size}))
     _prepare_out_dir(out_dir)
     one = _Pass(capture, requests, names, bit_true=bit_true, block_size=block_size, spectra=spectra,
-                channel_spectra=spectra if channel_spectra is None else bool(channel_spectra),
+                channel_spectra=channel_spectra,
                 audit_resolution=audit_resolution, engine=engine, read_ahead=read_ahead)
     one.timing = [channel_timing(r.plan.stages, fs=capture.sample_rate, trim=trim_settling) for r in requests]
     own_set = fileset is None
@@ -299,11 +299,12 @@ class _Pass:
         nperseg = _segment_length(fs, audit_resolution, None)
         self.overview = (SpacedWelch(fs=fs, nperseg=nperseg, total=n_total, segments=OVERVIEW_SEGMENTS,
                                      center_frequency=centre) if spectra else None)
+        channel_spectra = spectra if channel_spectra is None else bool(channel_spectra)
         self.out_spectra = []
         for r in requests:
             n_out = int(n_total * r.plan.output_rate / fs)
             nper = 1 << max(4, min(12, int(math.log2(max(n_out // 8, 16)))))
-            ok = (spectra if channel_spectra is None else channel_spectra) and n_out >= nper
+            ok = channel_spectra and n_out >= nper
             self.out_spectra.append(
                 SpacedWelch(fs=r.plan.output_rate, nperseg=nper, total=n_out, segments=OUTPUT_SEGMENTS,
                             center_frequency=centre + r.offset) if ok else None
