@@ -17,6 +17,14 @@ def test_bank_benchmark_reports_the_three_paths():
     assert r.memory_channels == (11, 22)
     assert all(m > 0 for m in r.memory_beyond_outputs)
     assert "memory beyond the outputs" in text
+    # the engine line says how the branch sums ran: compiled where numba (the fast extra) is
+    # installed and the bank is short (K O taps per sample up to COMPILED_UP_TO_TAPS)
+    from channelizer.engines import filterbank
+
+    bins, o, taps = (int(w.split()[0].removeprefix("O=")) for w in r.bank_layout.split(", "))
+    short = taps // bins * o <= filterbank.COMPILED_UP_TO_TAPS
+    assert ("compiled by numba" in r.bank_engine) == (short and filterbank.compiled_kernel() is not None) == bool(r.numba_version)
+    assert "engine        " + r.bank_engine in text
 
 
 def test_bench_command_with_spacing_writes_json(tmp_path, capsys):

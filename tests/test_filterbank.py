@@ -11,8 +11,13 @@ import pytest
 import scipy.signal
 
 from channelizer.errors import ChannelizerError
-from channelizer.engines.filterbank import BankChannelizer, PolyphaseBank
+from channelizer.engines import filterbank
+from channelizer.engines.filterbank import BankChannelizer, PolyphaseBank, compiled_kernel
+from channelizer.planning.bank import bank_method
 from channelizer.planning.stages import FirStage
+
+# the compiled branch sums need numba (the fast extra); without it their cases are skipped
+COMPILED = pytest.param("compiled", marks=pytest.mark.skipif(compiled_kernel() is None, reason="numba (the fast extra) is not installed"))
 
 
 @pytest.fixture
@@ -39,7 +44,7 @@ def feed(runner, x, sizes):
     return out
 
 
-@pytest.mark.parametrize("method", ["fft", "direct"])
+@pytest.mark.parametrize("method", ["fft", "direct", COMPILED])
 @pytest.mark.parametrize("M,O,K", [(16, 2, 3), (16, 4, 2), (12, 3, 4), (8, 1, 5), (8, 1, 27)])
 def test_every_bin_equals_mix_and_upfirdn(rng, M, O, K, method):
     h = scipy.signal.firwin(K * M, 1.0 / M)
@@ -53,7 +58,7 @@ def test_every_bin_equals_mix_and_upfirdn(rng, M, O, K, method):
         assert np.max(np.abs(y[:, k] - ref)) < 1e-5 * np.max(np.abs(ref))
 
 
-@pytest.mark.parametrize("method", ["fft", "direct"])
+@pytest.mark.parametrize("method", ["fft", "direct", COMPILED])
 def test_output_does_not_depend_on_block_size(rng, method):
     h = scipy.signal.firwin(6 * 32, 1.0 / 32)
     x = noise(rng, 5000).astype(np.complex64)
@@ -61,6 +66,8 @@ def test_output_does_not_depend_on_block_size(rng, method):
     b = np.concatenate(feed(PolyphaseBank(h, 32, 2, keep=[0, 5, 31], method=method), x, [1, 17, 999, 3]))
     assert a.shape == b.shape == (5000 // 16, 3)
     np.testing.assert_allclose(a, b, rtol=0, atol=1e-6)
+    if method == "compiled":  # each output row is summed on its own, in one order
+        assert np.array_equal(a, b)
 
 
 def test_a_tone_on_a_bin_centre_comes_out_of_that_bin_only():
@@ -107,6 +114,47 @@ def test_bad_layouts_are_refused():
         PolyphaseBank(np.ones(32), 8, 2, method="blas")
 
 
+def test_compiled_without_numba_says_how_to_install_it(monkeypatch):
+    # where numba is missing, 'compiled' is refused with the install line, and 'auto'
+    # takes the path the planner's cost model counts (bank_method)
+    monkeypatch.setattr(filterbank, "_KERNEL", [None])
+    with pytest.raises(ChannelizerError, match=r"numba.*pip install '\.\[fast\]'"):
+        PolyphaseBank(np.ones(32), 8, 2, method="compiled")
+    assert PolyphaseBank(np.ones(8 * 27), 8, 1).method == bank_method(27, 1, 8)
+    assert PolyphaseBank(np.ones(64 * 40), 64, 2).method == bank_method(40, 2, 64) == "fft"
+
+
+@pytest.mark.skipif(compiled_kernel() is None, reason="numba (the fast extra) is not installed")
+def test_auto_compiles_short_banks_only():
+    # K O taps per input sample: up to COMPILED_UP_TO_TAPS compiled, beyond it as bank_method says
+    limit = filterbank.COMPILED_UP_TO_TAPS
+    assert PolyphaseBank(np.ones(8 * limit), 8, 1).method == "compiled"
+    assert PolyphaseBank(np.ones(8 * (limit + 1)), 8, 1).method == bank_method(limit + 1, 1, 8) == "fft"
+
+
+@pytest.mark.skipif(compiled_kernel() is None, reason="numba (the fast extra) is not installed")
+@pytest.mark.parametrize("M,O,K,keep", [(16, 1, 14, None), (16, 1, 14, [1, 2, 9]), (24, 6, 5, [23, 0, 5, 7, 13]), (12, 3, 4, [11, 0])])
+def test_compiled_runs_in_two_threads_equal_mix_and_upfirdn(rng, monkeypatch, M, O, K, keep):
+    # the compiled path hands runs of a few rows to two threads, each copying the stretch
+    # of history and block its rows read; forced here into runs of 4 O rows (the least),
+    # with blocks of uneven sizes (runs that straddle the history and the block, a last
+    # run shorter than the others); reference: mixing plus scipy.signal.upfirdn
+    # (Crochiere & Rabiner 1983, ch. 7)
+    monkeypatch.setattr(filterbank, "KERNEL_RUN", 1)
+    monkeypatch.setattr(filterbank, "FFT_WORKERS", 2)
+    h = scipy.signal.firwin(K * M, 1.0 / M)
+    x = noise(rng, 20000)
+    bank = PolyphaseBank(h, M, O, keep=keep, method="compiled")
+    assert bank._chunk == 4 * O
+    y = np.concatenate(feed(bank, x.astype(np.complex64), [7000, 5, 3, 12992]))
+    D = M // O
+    bins = range(M) if keep is None else keep
+    assert y.shape == (x.size // D, len(bins))
+    for i, k in enumerate(bins):
+        ref = bin_reference(h, x, k, M, D)
+        assert np.max(np.abs(y[:, i] - ref)) < 1e-5 * np.max(np.abs(ref))
+
+
 @pytest.mark.parametrize("M,O,K", [(16, 1, 14), (16, 4, 4), (18, 3, 5)])
 def test_kept_bins_equal_the_same_bins_of_the_whole_bank(rng, M, O, K):
     # a subset of bins is those columns of the whole bank, on either branch-filter path
@@ -115,7 +163,7 @@ def test_kept_bins_equal_the_same_bins_of_the_whole_bank(rng, M, O, K):
     x = noise(rng, 3000).astype(np.complex64)
     keep = [0, 3, 4, 5, M - 1]
     whole = np.concatenate(feed(PolyphaseBank(h, M, O, method="direct"), x, [3000]))
-    for method in ("fft", "direct"):
+    for method in ("fft", "direct") + (("compiled",) if compiled_kernel() else ()):
         part = np.concatenate(feed(PolyphaseBank(h, M, O, keep=keep, method=method), x, [700, 5]))
         np.testing.assert_allclose(part, whole[:, keep], rtol=0, atol=1e-5)
 

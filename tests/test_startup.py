@@ -13,7 +13,7 @@ import sys
 import pytest
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-HEAVY = ("numpy", "numpy.ma", "scipy", "scipy.signal", "scipy.stats", "scipy.optimize", "matplotlib", "yaml", "dask", "distributed")
+HEAVY = ("numpy", "numpy.ma", "scipy", "scipy.signal", "scipy.stats", "scipy.optimize", "matplotlib", "yaml", "dask", "distributed", "numba")
 
 _PROBE = """
 import contextlib, io, json, sys
@@ -58,7 +58,7 @@ def test_extract_without_plots_skips_scipy_and_matplotlib(tmp_path):
     got = _loaded("extract", cap, "--plan", plan, "--channel", "a=+0", "--out", str(tmp_path / "o"), "--no-plots", "--quiet")
     assert got["status"] == 0
     assert got["heavy"]["numpy"]
-    for name in ("scipy", "matplotlib", "dask", "numpy.ma"):
+    for name in ("scipy", "matplotlib", "dask", "numpy.ma", "numba"):
         assert not got["heavy"][name], name
 
 
@@ -66,6 +66,13 @@ def test_plan_without_plot_skips_matplotlib():
     got = _loaded("plan", "--rate", "2.4M", "--bandwidth", "12.5k", "--output-rate", "48k")
     assert got["status"] == 0
     assert not got["heavy"]["matplotlib"] and not got["heavy"]["dask"]
+
+
+def test_planning_a_bank_skips_numba():
+    # numba (the fast extra) compiles the bank's loops when a bank runs; planning one never loads it
+    got = _loaded("plan", "--rate", "2.4M", "--bandwidth", "10k", "--spacing", "12.5k")
+    assert got["status"] == 0
+    assert not got["heavy"]["numba"] and not got["heavy"]["matplotlib"], got["heavy"]
 
 
 @pytest.mark.parametrize("argv", [

@@ -68,6 +68,8 @@ class BankBenchReport:
     bank_cpu_s: float = 0.0  # process CPU time (all threads) per second of capture
     memory_channels: tuple = ()  # (N, 2N)
     memory_beyond_outputs: tuple = ()  # bytes, for N and 2N channels
+    bank_engine: str = ""  # how the bank's branch sums ran
+    numba_version: str = ""  # where they ran compiled
 
     def to_dict(self):
         return asdict(self)
@@ -163,6 +165,8 @@ def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
 
     cpu = []
     bank = _best(make_bank(plan.count), x, cpu)
+    method = make_bank(plan.count)().bank.method
+    compiled = filterbank.compiled_kernel() if method == "compiled" else None
     half = max(1, plan.count // 2)
     memory = tuple(_memory_beyond_outputs(make_bank(c), x) for c in (half, 2 * half))
     measured = min(plan.count, PER_CHANNEL_MEASURED)
@@ -176,7 +180,17 @@ def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
         chain_layout=result.alternatives[0].layout if result.alternatives else "",
         one_channel_s=one / seconds, bank_s=bank / seconds, per_channel_s=per / seconds, per_channel_measured=measured,
         bank_cpu_s=cpu[0] / seconds, memory_channels=(half, 2 * half), memory_beyond_outputs=memory,
+        bank_engine=_engine(method), numba_version=compiled.version if compiled else "",
     )
+
+
+def _engine(method):
+    """How the bank's branch sums ran, in words."""
+    if method == "compiled":
+        return "branch sums compiled by numba (the fast extra)"
+    how = "by FFT correlation" if method == "fft" else "by element-wise passes"
+    hint = "" if filterbank.compiled_kernel() else "; the fast extra compiles short banks"
+    return f"branch sums {how} (numpy{hint})"
 
 
 def _row(label, s_per_s):
@@ -189,6 +203,7 @@ def format_bank_report(r):
         f"filter bank: {r.channels} channels of {r.bandwidth:g} Hz every {r.spacing:g} Hz of a {r.rate / 1e6:g} Msps capture "
         f"({r.seconds_of_capture:g} s of noise, best of {REPEATS} runs or more; seconds per second of capture)",
         f"  bank          {r.bank_layout}",
+        f"  engine        {r.bank_engine}",
         f"  chain         {r.chain_layout}",
         "",
         _row("one channel (chain)", r.one_channel_s),
