@@ -35,6 +35,16 @@ def bin_reference(h, x, k, M, D):
     return scipy.signal.upfirdn(h, x * np.exp(-2j * np.pi * k * m / M), 1, D)[: x.size // D]
 
 
+def assert_bins_equal_reference(y, h, x, M, O, keep):
+    """Every kept bin of ``y`` (outputs by bins) against :func:`bin_reference`, to float32 rounding."""
+    D = M // O
+    bins = range(M) if keep is None else keep
+    assert y.shape == (x.size // D, len(bins))  # floor(N / D) outputs (common practice)
+    for i, k in enumerate(bins):
+        ref = bin_reference(h, x, k, M, D)
+        assert np.max(np.abs(y[:, i] - ref)) < 1e-5 * np.max(np.abs(ref))
+
+
 def feed(runner, x, sizes):
     out, i, k = [], 0, 0
     while i < x.size:
@@ -132,29 +142,6 @@ def test_auto_compiles_short_banks_only():
     assert PolyphaseBank(np.ones(8 * (limit + 1)), 8, 1).method == bank_method(limit + 1, 1, 8) == "fft"
 
 
-@pytest.mark.skipif(compiled_kernel() is None, reason="numba (the fast extra) is not installed")
-@pytest.mark.parametrize("M,O,K,keep", [(16, 1, 14, None), (16, 1, 14, [1, 2, 9]), (24, 6, 5, [23, 0, 5, 7, 13]), (12, 3, 4, [11, 0])])
-def test_compiled_runs_in_two_threads_equal_mix_and_upfirdn(rng, monkeypatch, M, O, K, keep):
-    # the compiled path hands runs of a few rows to two threads, each copying the stretch
-    # of history and block its rows read; forced here into runs of 4 O rows (the least),
-    # with blocks of uneven sizes (runs that straddle the history and the block, a last
-    # run shorter than the others); reference: mixing plus scipy.signal.upfirdn
-    # (Crochiere & Rabiner 1983, ch. 7)
-    monkeypatch.setattr(filterbank, "KERNEL_RUN", 1)
-    monkeypatch.setattr(filterbank, "FFT_WORKERS", 2)
-    h = scipy.signal.firwin(K * M, 1.0 / M)
-    x = noise(rng, 20000)
-    bank = PolyphaseBank(h, M, O, keep=keep, method="compiled")
-    assert bank._chunk == 4 * O
-    y = np.concatenate(feed(bank, x.astype(np.complex64), [7000, 5, 3, 12992]))
-    D = M // O
-    bins = range(M) if keep is None else keep
-    assert y.shape == (x.size // D, len(bins))
-    for i, k in enumerate(bins):
-        ref = bin_reference(h, x, k, M, D)
-        assert np.max(np.abs(y[:, i] - ref)) < 1e-5 * np.max(np.abs(ref))
-
-
 @pytest.mark.parametrize("M,O,K", [(16, 1, 14), (16, 4, 4), (18, 3, 5)])
 def test_kept_bins_equal_the_same_bins_of_the_whole_bank(rng, M, O, K):
     # a subset of bins is those columns of the whole bank, on either branch-filter path
@@ -174,8 +161,6 @@ def test_residue_passes_in_pieces_equal_mix_and_upfirdn(rng, monkeypatch, worker
     # of a frame at a time; forced here into passes of 8 rows, with kept bins in every
     # residue class (M = 24, O = 6: bin k in class k mod 6), in one or two threads;
     # reference: mixing plus scipy.signal.upfirdn (Crochiere & Rabiner 1983, ch. 7)
-    from channelizer.engines import filterbank
-
     monkeypatch.setattr(filterbank, "CHUNK", 8 * 24)
     monkeypatch.setattr(filterbank, "FFT_WORKERS", workers)
     M, O, K = 24, 6, 5
@@ -185,31 +170,32 @@ def test_residue_passes_in_pieces_equal_mix_and_upfirdn(rng, monkeypatch, worker
     bank = PolyphaseBank(h, M, O, keep=keep, method="fft")
     assert bank._N > bank._chunk  # several passes per frame
     y = np.concatenate(feed(bank, x.astype(np.complex64), [4000, 3, 4997]))
-    D = M // O
-    assert y.shape == (x.size // D, len(keep))
-    for i, k in enumerate(keep):
-        ref = bin_reference(h, x, k, M, D)
-        assert np.max(np.abs(y[:, i] - ref)) < 1e-5 * np.max(np.abs(ref))
+    assert_bins_equal_reference(y, h, x, M, O, keep)
 
 
-@pytest.mark.parametrize("M,O,K,keep", [(16, 1, 14, None), (16, 1, 14, [1, 2, 9]), (24, 6, 5, [23, 0, 5, 7, 13])])
-def test_batched_frames_in_two_threads_equal_mix_and_upfirdn(rng, monkeypatch, M, O, K, keep):
-    # the FFT path may take several frames at a time through each step, and hands the
-    # batches of a block to two threads; forced here into batches of 3 frames, with
-    # blocks of uneven sizes (a last batch shorter than the others);
-    # reference: mixing plus scipy.signal.upfirdn (Crochiere & Rabiner 1983, ch. 7)
-    from channelizer.engines import filterbank
+# How each path splits a block between two threads, forced to its finest: the FFT path in
+# batches of 3 frames through each step, the compiled path in runs of 4 O rows (the least),
+# each thread copying the stretch of history and block its rows read.
+SPLITS = [
+    pytest.param("fft", "BATCH", 3, "_batch", lambda O: 3, id="fft-batches-of-3-frames"),
+    pytest.param(
+        "compiled", "KERNEL_RUN", 1, "_chunk", lambda O: 4 * O, id="compiled-runs-of-4O-rows",
+        marks=pytest.mark.skipif(compiled_kernel() is None, reason="numba (the fast extra) is not installed"),
+    ),
+]
 
-    monkeypatch.setattr(filterbank, "BATCH", 3)
+
+@pytest.mark.parametrize("method,knob,value,attr,expect", SPLITS)
+@pytest.mark.parametrize("M,O,K,keep", [(16, 1, 14, None), (16, 1, 14, [1, 2, 9]), (24, 6, 5, [23, 0, 5, 7, 13]), (12, 3, 4, [11, 0])])
+def test_blocks_split_between_two_threads_equal_mix_and_upfirdn(rng, monkeypatch, M, O, K, keep, method, knob, value, attr, expect):
+    # blocks of uneven sizes (pieces that straddle the history and the block, a last piece
+    # shorter than the others); reference: mixing plus scipy.signal.upfirdn
+    # (Crochiere & Rabiner 1983, ch. 7)
+    monkeypatch.setattr(filterbank, knob, value)
     monkeypatch.setattr(filterbank, "FFT_WORKERS", 2)
     h = scipy.signal.firwin(K * M, 1.0 / M)
     x = noise(rng, 40000)
-    bank = PolyphaseBank(h, M, O, keep=keep, method="fft")
-    assert bank._batch == 3
-    y = np.concatenate(feed(bank, x.astype(np.complex64), [17000, 5, 22995]))
-    D = M // O
-    bins = range(M) if keep is None else keep
-    assert y.shape == (x.size // D, len(bins))
-    for i, k in enumerate(bins):
-        ref = bin_reference(h, x, k, M, D)
-        assert np.max(np.abs(y[:, i] - ref)) < 1e-5 * np.max(np.abs(ref))
+    bank = PolyphaseBank(h, M, O, keep=keep, method=method)
+    assert getattr(bank, attr) == expect(O)
+    y = np.concatenate(feed(bank, x.astype(np.complex64), [17000, 5, 3, 22992]))
+    assert_bins_equal_reference(y, h, x, M, O, keep)
