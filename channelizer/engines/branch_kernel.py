@@ -59,7 +59,11 @@ def _rows_in_step(fb, h2, M, n0, n1, out):
     n = n0
     while n + 4 <= n1:
         o0, o1, o2, o3 = out[n], out[n + 1], out[n + 2], out[n + 3]
-        out[n : n + 4] = 0.0
+        for j in range(W):
+            o0[j] = 0.0
+            o1[j] = 0.0
+            o2[j] = 0.0
+            o3[j] = 0.0
         m = 0
         while m + 2 <= K:
             b = d * (n + m)
@@ -90,7 +94,11 @@ def _rows_apart(fb, h2, D, M, n0, n1, out):
     n = n0
     while n + 4 <= n1:
         o0, o1, o2, o3 = out[n], out[n + 1], out[n + 2], out[n + 3]
-        out[n : n + 4] = 0.0
+        for j in range(W):
+            o0[j] = 0.0
+            o1[j] = 0.0
+            o2[j] = 0.0
+            o3[j] = 0.0
         m = 0
         while m + 2 <= K:
             b = 2 * (n * D + m * M)
