@@ -128,8 +128,25 @@ def test_compiled_without_numba_says_how_to_install_it(monkeypatch):
     # where numba is missing, 'compiled' is refused with the install line, and 'auto'
     # takes the path the planner's cost model counts (bank_method)
     monkeypatch.setattr(filterbank, "_KERNEL", [None])
-    with pytest.raises(ChannelizerError, match=r"numba.*pip install '\.\[fast\]'"):
+    with pytest.raises(ChannelizerError, match=r"needs numba.*pip install '\.\[fast\]'"):
         PolyphaseBank(np.ones(32), 8, 2, method="compiled")
+    # numba installed but unable to set up its loops (numba raises RuntimeError where it finds
+    # no folder to cache them in): the reason is given, and 'auto' takes the numpy paths
+    import builtins
+
+    real_import = builtins.__import__
+
+    def no_cache_folder(name, globals=None, locals=None, fromlist=(), level=0):
+        if level and fromlist and "branch_kernel" in fromlist:
+            raise RuntimeError("cannot cache function 'branch_sums': no locator available")
+        return real_import(name, globals, locals, fromlist, level)
+
+    monkeypatch.setattr(filterbank, "_KERNEL", [])
+    monkeypatch.setattr(filterbank, "_KERNEL_WHY", filterbank._KERNEL_WHY)
+    monkeypatch.setattr(builtins, "__import__", no_cache_folder)
+    with pytest.raises(ChannelizerError, match=r"compiled.*not available.*could not set up.*no locator"):
+        PolyphaseBank(np.ones(32), 8, 2, method="compiled")
+    assert PolyphaseBank(np.ones(8 * 27), 8, 1).method == bank_method(27, 1, 8)
     assert PolyphaseBank(np.ones(8 * 27), 8, 1).method == bank_method(27, 1, 8)
     assert PolyphaseBank(np.ones(64 * 40), 64, 2).method == bank_method(40, 2, 64) == "fft"
 

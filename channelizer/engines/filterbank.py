@@ -156,7 +156,7 @@ class PolyphaseBank:
         if method not in ("auto", "fft", "direct", "compiled"):
             raise ChannelizerError(f"method: expected 'auto', 'fft', 'direct' or 'compiled', got {method!r}")
         if method == "compiled" and compiled_kernel() is None:
-            raise ChannelizerError("method: 'compiled' needs numba, the fast extra: python3 -m pip install '.[fast]'")
+            raise ChannelizerError(f"method: 'compiled' is not available here: {_KERNEL_WHY}")
         if method == "auto":
             method = "compiled" if self.K * O <= COMPILED_UP_TO_TAPS and compiled_kernel() is not None else bank_method(self.K, O, M)
         self.method = method
@@ -412,6 +412,8 @@ class PolyphaseBank:
 
 
 _KERNEL = []
+#: Why :func:`compiled_kernel` found no compiled loops.
+_KERNEL_WHY = "it needs numba, the fast extra: python3 -m pip install '.[fast]'"
 
 
 def _aligned(shape, dtype, *, fill=None):
@@ -432,12 +434,17 @@ def _aligned(shape, dtype, *, fill=None):
 
 def compiled_kernel():
     """The compiled loops (the module :mod:`channelizer.engines.branch_kernel`), or None
-    where numba is not installed.  Imported on first use only."""
+    where numba is not installed or cannot set them up (:data:`_KERNEL_WHY` says which).
+    Imported on first use only."""
+    global _KERNEL_WHY
     if not _KERNEL:
         try:
             from . import branch_kernel
         except ImportError:
             branch_kernel = None
+        except (RuntimeError, OSError) as exc:  # numba found no folder to cache its code in, ...
+            branch_kernel = None
+            _KERNEL_WHY = f"numba could not set up the compiled loops ({exc})"
         _KERNEL.append(branch_kernel)
     return _KERNEL[0]
 
