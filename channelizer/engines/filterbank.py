@@ -151,8 +151,8 @@ class PolyphaseBank:
         self._phase = np.exp(-2j * np.pi * ((k[None, :] * shifts) % M) / M).astype(np.complex64)
         # hr[m, r] = h[KM-1-mM-r], laid out as float32 pairs to multiply I and Q alike
         hr = h[::-1].reshape(self.K, M).astype(np.float32)
-        # branch filters by overlap-save FFT correlation, or K element-wise passes
-        # (short prototypes, or on request: see _branches)
+        # branch filters by overlap-save FFT correlation, K element-wise passes (short
+        # prototypes, or on request: see _branches), or compiled loops (numba: _by_kernel)
         if method not in ("auto", "fft", "direct", "compiled"):
             raise ChannelizerError(f"method: expected 'auto', 'fft', 'direct' or 'compiled', got {method!r}")
         if method == "compiled" and compiled_kernel() is None:
