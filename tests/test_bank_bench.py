@@ -27,6 +27,17 @@ def test_bank_benchmark_reports_the_three_paths():
     assert "engine        " + r.bank_engine in text
 
 
+def test_engine_line_says_why_the_numpy_paths_ran(monkeypatch):
+    # without numba the engine line names the numpy path, why, and the install line
+    from channelizer.bench import bank_speed
+    from channelizer.engines import filterbank
+
+    monkeypatch.setattr(filterbank, "_KERNEL", [None])
+    line = bank_speed._engine("fft")
+    assert line.startswith("branch sums by FFT correlation (numpy; compiled loops not available here")
+    assert "pip install '.[fast]'" in line
+
+
 def test_bench_command_with_spacing_writes_json(tmp_path, capsys):
     out = tmp_path / "b.json"
     assert main(["bench", "--spacing", "200k", "--rate", "4.8M", "--seconds", "0.02", "--json", str(out)]) == 0

@@ -147,6 +147,7 @@ def test_compiled_without_numba_says_how_to_install_it(monkeypatch):
     with pytest.raises(ChannelizerError, match=r"compiled.*not available.*could not set up.*no locator"):
         PolyphaseBank(np.ones(32), 8, 2, method="compiled")
     assert PolyphaseBank(np.ones(8 * 27), 8, 1).method == bank_method(27, 1, 8)
+    assert "no locator" in filterbank.why_not_compiled()  # the bench's engine line says it too
     assert PolyphaseBank(np.ones(8 * 27), 8, 1).method == bank_method(27, 1, 8)
     assert PolyphaseBank(np.ones(64 * 40), 64, 2).method == bank_method(40, 2, 64) == "fft"
 

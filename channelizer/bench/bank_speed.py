@@ -189,8 +189,8 @@ def _engine(method):
     if method == "compiled":
         return "branch sums compiled by numba (the fast extra)"
     how = "by FFT correlation" if method == "fft" else "by element-wise passes"
-    hint = "" if filterbank.compiled_kernel() else "; the fast extra compiles short banks"
-    return f"branch sums {how} (numpy{hint})"
+    why = filterbank.why_not_compiled()
+    return f"branch sums {how} (numpy{'; compiled loops not available here: ' + why if why else ''})"
 
 
 def _row(label, s_per_s):

@@ -76,7 +76,7 @@ from ..planning.bank import bank_method, fft_frame, kept_bins
 from .float_chain import build_chain
 from .streaming import _EMPTY, _as_block, _check_factor, _check_taps
 
-__all__ = ["PolyphaseBank", "BankChannelizer", "compiled_kernel"]
+__all__ = ["PolyphaseBank", "BankChannelizer", "compiled_kernel", "why_not_compiled"]
 
 #: Threads for the FFTs (rows are independent; the targets count 2 cores).
 FFT_WORKERS = 2
@@ -156,7 +156,7 @@ class PolyphaseBank:
         if method not in ("auto", "fft", "direct", "compiled"):
             raise ChannelizerError(f"method: expected 'auto', 'fft', 'direct' or 'compiled', got {method!r}")
         if method == "compiled" and compiled_kernel() is None:
-            raise ChannelizerError(f"method: 'compiled' is not available here: {_KERNEL_WHY}")
+            raise ChannelizerError(f"method: 'compiled' is not available here: {why_not_compiled()}")
         if method == "auto":
             method = "compiled" if self.K * O <= COMPILED_UP_TO_TAPS and compiled_kernel() is not None else bank_method(self.K, O, M)
         self.method = method
@@ -447,6 +447,11 @@ def compiled_kernel():
             _KERNEL_WHY = f"numba could not set up the compiled loops ({exc})"
         _KERNEL.append(branch_kernel)
     return _KERNEL[0]
+
+
+def why_not_compiled():
+    """Why the compiled loops are not available here, in words ('' where they are)."""
+    return "" if compiled_kernel() is not None else _KERNEL_WHY
 
 
 def _runs(keep):
