@@ -130,6 +130,8 @@ def test_compiled_without_numba_says_how_to_install_it(monkeypatch):
     monkeypatch.setattr(filterbank, "_KERNEL", [None])
     with pytest.raises(ChannelizerError, match=r"needs numba.*pip install '\.\[fast\]'"):
         PolyphaseBank(np.ones(32), 8, 2, method="compiled")
+    assert PolyphaseBank(np.ones(8 * 27), 8, 1).method == bank_method(27, 1, 8)
+    assert PolyphaseBank(np.ones(64 * 40), 64, 2).method == bank_method(40, 2, 64) == "fft"
     # numba installed but unable to set up its loops (numba raises RuntimeError where it finds
     # no folder to cache them in): the reason is given, and 'auto' takes the numpy paths
     import builtins
@@ -148,8 +150,6 @@ def test_compiled_without_numba_says_how_to_install_it(monkeypatch):
         PolyphaseBank(np.ones(32), 8, 2, method="compiled")
     assert PolyphaseBank(np.ones(8 * 27), 8, 1).method == bank_method(27, 1, 8)
     assert "no locator" in filterbank.why_not_compiled()  # the bench's engine line says it too
-    assert PolyphaseBank(np.ones(8 * 27), 8, 1).method == bank_method(27, 1, 8)
-    assert PolyphaseBank(np.ones(64 * 40), 64, 2).method == bank_method(40, 2, 64) == "fft"
 
 
 @pytest.mark.skipif(compiled_kernel() is None, reason="numba (the fast extra) is not installed")

@@ -170,17 +170,16 @@ class PolyphaseBank:
             self._local = threading.local()
             # kept bin k = c + Oq sits at c D + q of the residues' transforms
             self._idx = None if self.keep is None and O == 1 else (k % O) * self.decimation + k // O
+        elif self.method == "compiled":
+            self._kernel = compiled_kernel()
+            self._h2 = _aligned((self.K, 2 * M), np.float32, fill=np.repeat(hr, 2, axis=1))
+            step = 4 * O  # rows per run: a multiple of 4 O whose work arrays stay in cache
+            self._chunk = max(step, KERNEL_RUN // M // step * step)
+            self._local = threading.local()
+            self._kept = np.arange(M) if self.keep is None else self.keep
         else:
             self._h2 = np.repeat(hr, 2, axis=1)
-            if method == "compiled":
-                self._h2 = _aligned(self._h2.shape, np.float32, fill=self._h2)
             self._rows = max(16, 32768 // M)  # rows per pass: the pass stays in cache
-            self._kernel = compiled_kernel() if self.method == "compiled" else None
-            if self._kernel is not None:  # rows per run: a multiple of 4 O whose work arrays stay in cache
-                step = 4 * O
-                self._chunk = max(step, KERNEL_RUN // M // step * step)
-                self._local = threading.local()
-                self._kept = np.arange(M) if self.keep is None else self.keep
         self._hist = np.zeros(h.size - 1, dtype=np.complex64)
         self.n_in = 0
         self.n_out = 0
@@ -393,17 +392,16 @@ class PolyphaseBank:
         hs = hist.size
         if self.method == "fft":
             out = self._by_fft(hist, x, n_new, first_c)
+        elif self.method == "compiled":
+            out = self._by_kernel(hist, x, n_new, first_c)
         else:
-            if self._kernel is not None:
-                out = self._by_kernel(hist, x, n_new, first_c)
-            else:
-                buf = np.concatenate((hist, x))
-                u = self._branches(buf, n_new)  # a fresh array: the FFT may overwrite it
-                y = scipy.fft.fft(u, axis=1, overwrite_x=True, workers=FFT_WORKERS)
-                out = np.empty((M if self.keep is None else self.keep.size, n_new), np.complex64)
-                out[:] = self._take_kept(y).T
-                for c in range(O):  # outputs n with n % O == c: rows i = (c - n_out) mod O, step O
-                    out[:, (c - first_c) % O :: O] *= self._phase[c][:, None]
+            buf = np.concatenate((hist, x))
+            u = self._branches(buf, n_new)  # a fresh array: the FFT may overwrite it
+            y = scipy.fft.fft(u, axis=1, overwrite_x=True, workers=FFT_WORKERS)
+            out = np.empty((M if self.keep is None else self.keep.size, n_new), np.complex64)
+            out[:] = self._take_kept(y).T
+            for c in range(O):  # outputs n with n % O == c: rows i = (c - n_out) mod O, step O
+                out[:, (c - first_c) % O :: O] *= self._phase[c][:, None]
         # the samples from output n_new on: what is left of the history, then the block
         cut = n_new * D
         self._hist = x[cut - hs :].copy() if cut >= hs else np.concatenate((hist[cut:], x))
