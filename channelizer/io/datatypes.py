@@ -203,7 +203,8 @@ def from_complex64(samples, datatype):
     -------
     components : numpy.ndarray
         Shape ``(2n,)``, interleaved I, Q, in the datatype's stored dtype (byte
-        order included), ready for ``tobytes()``.
+        order included), ready for ``tobytes()``; a view of ``samples`` where they
+        already are in that dtype.
     clipped : int
         Number of samples with a component outside the integer range (saturated)
         or NaN (stored as 0); always 0 for float datatypes.
@@ -221,7 +222,8 @@ def from_complex64(samples, datatype):
         raise TypeError(f"expected 1-D complex samples, got {samples.dtype} of shape {samples.shape}")
     if dt.kind == "f":
         work = samples.astype(np.complex64 if dt.bits == 32 else np.complex128, copy=False)
-        return work.view(work.real.dtype).astype(dt.numpy_dtype), 0
+        # no copy where the samples are already stored as asked (cf32_le from complex64 here)
+        return work.view(work.real.dtype).astype(dt.numpy_dtype, copy=False), 0
     ftype = np.float32 if dt.bits <= 16 else np.float64
     source = samples.astype(np.complex64 if ftype is np.float32 else np.complex128, copy=False)
     half = 2.0 ** (dt.bits - 1)
