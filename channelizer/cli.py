@@ -142,18 +142,18 @@ def _plan_bank(args):
 
 
 def _cmd_show(args):
-    from .run.bank_extraction import load_bank_plan_file
+    from .planning.bank import BankPlan
+    from .run.bank_extraction import load_any_plan_file
     from .views.table import format_plan
 
-    bank = load_bank_plan_file(args.plan)
+    plan = load_any_plan_file(args.plan)[0]
     _check_outputs([args.plot], figures=[args.plot], inputs=[args.plan])
-    if bank is not None:
+    if isinstance(plan, BankPlan):
         from .views.bank_table import format_bank_plan
 
-        print(format_bank_plan(bank[0]))
-        plan = bank[0].channel_plan()
+        print(format_bank_plan(plan))
+        plan = plan.channel_plan()
     else:
-        plan = read_plan(args.plan)
         print(format_plan(plan))
     if args.plot:
         from .views.plots import plot_plan
@@ -195,11 +195,13 @@ def _cmd_extract(args):
     if args.channels:
         entries += parse_channel_list(_read_text(args.channels, "channel list"), source=args.channels)
         base = os.path.dirname(os.path.abspath(args.channels))
-    bank = None
+    bank = loaded = None
     if args.plan:
-        from .run.bank_extraction import load_bank_plan_file
+        from .planning.bank import BankPlan
+        from .run.bank_extraction import load_any_plan_file
 
-        bank = load_bank_plan_file(args.plan)  # None for a chain plan
+        loaded = load_any_plan_file(args.plan)
+        bank = loaded if isinstance(loaded[0], BankPlan) else None
     if not entries and bank is None:
         raise ChannelizerError("no channel to extract: give --channel NAME=FREQ or --channels FILE")
     if bank is not None and args.bit_true:
@@ -223,7 +225,8 @@ def _cmd_extract(args):
 
         result = run_bank_extraction(capture, bank[0], args.out, entries=entries, plan_id=bank[1], plan_source=args.plan, **common)
     else:
-        result = run_extraction(capture, entries, args.out, plan_path=args.plan, base_dir=base, **common)
+        result = run_extraction(capture, entries, args.out, plan_path=args.plan, base_dir=base,
+                                preloaded={args.plan: loaded} if loaded else None, **common)
     from .units import format_hz
 
     if capture.nonfinite_count:
@@ -390,18 +393,20 @@ def _cmd_verify(args):
     from .checks.verify import verify_plan
     from .views.verify_plot import plot_verification
 
-    from .run.bank_extraction import load_bank_plan_file
+    from .planning.bank import BankPlan
+    from .run.bank_extraction import load_any_plan_file
 
-    bank = load_bank_plan_file(args.plan)
+    plan = load_any_plan_file(args.plan)[0]
+    bank = plan if isinstance(plan, BankPlan) else None
     if bank is not None and (args.bit_true or args.plot):
         raise ChannelizerError(f"--{'bit-true' if args.bit_true else 'plot'} does not cover filter-bank plans yet; verify {args.plan} without it")
     _check_outputs([args.plot, args.json], figures=[args.plot], inputs=[args.plan])
     if bank is not None:
         from .checks.bank_verify import verify_bank
 
-        v = verify_bank(bank[0], **({} if args.tones is None else {"tones": args.tones}))
+        v = verify_bank(bank, **({} if args.tones is None else {"tones": args.tones}))
     else:
-        v = verify_plan(read_plan(args.plan), bit_true=args.bit_true, tones=args.tones)
+        v = verify_plan(plan, bit_true=args.bit_true, tones=args.tones)
     print("\n".join(v.summary_lines()))
     if args.plot:
         plot_verification(v, args.plot)

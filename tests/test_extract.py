@@ -208,3 +208,19 @@ def test_run_without_plots_audits_without_output_spectra(plan_file, capture, tmp
     no_out = extract_channels(open_capture(cap_path), req, str(tmp_path / "n"), channel_spectra=False)
     assert no_out.channels[0].spectrum is None and no_out.overview is not None
     np.testing.assert_array_equal(no_out.overview.psd, full.overview.psd)
+
+
+def test_the_plan_file_is_read_and_parsed_once(plan_file, capture, tmp_path, monkeypatch):
+    # one read whether the file turns out to hold a chain plan or a bank plan (common practice)
+    from channelizer.planning import plan as plan_module
+    from channelizer.run import bank_extraction
+
+    path, _ = plan_file
+    cap_path, _ = capture
+    parsed = []
+    real = plan_module.load_plan_text
+    monkeypatch.setattr(bank_extraction, "load_plan_text", lambda text, **k: parsed.append(k) or real(text, **k))
+    monkeypatch.setattr(plan_module, "load_plan_text", lambda text, **k: parsed.append(k) or real(text, **k))
+    rc = main(["extract", cap_path, "--plan", path, "--channel", "a=+150k", "--channel", "b=+0", "--out",
+               str(tmp_path / "o"), "--quiet", "--no-plots"])
+    assert rc == 0 and parsed == [{"source": path}]

@@ -12,21 +12,23 @@ import math
 from ..errors import ChannelizerError
 from ..io.channels import resolve_offset
 from ..planning.bank import BankPlan, is_bank_data
-from ..planning.plan import load_plan_text
+from ..planning.plan import Plan, load_plan_text
 from ..units import format_hz
 from .extraction import RunOptions, read_plan_bytes, run_requests
 from .processor import ChannelRequest, plan_identity
 
-__all__ = ["load_bank_plan_file", "raster_channel_name", "select_channels", "run_bank_extraction"]
+__all__ = ["load_any_plan_file", "raster_channel_name", "select_channels", "run_bank_extraction"]
 
 
-def load_bank_plan_file(path):
-    """``(BankPlan, identity)`` when ``path`` holds a bank plan, else None (a chain plan)."""
+def load_any_plan_file(path):
+    """``(plan, identity)`` of a plan file: a :class:`BankPlan` for a bank plan, else a chain ``Plan``.
+
+    The file is read and parsed once, whichever kind it holds.
+    """
     data = read_plan_bytes(path)
     loaded = load_plan_text(data, source=path)
-    if not is_bank_data(loaded):
-        return None
-    return BankPlan.from_dict(loaded, source=path), plan_identity(data)
+    kind = BankPlan if is_bank_data(loaded) else Plan
+    return kind.from_dict(loaded, source=path), plan_identity(data)
 
 
 def raster_channel_name(frequency):

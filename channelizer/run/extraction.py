@@ -95,11 +95,12 @@ def read_plan_bytes(path):
     return data
 
 
-def run_extraction(capture, entries, out_dir, *, plan_path=None, base_dir=".", **options):
+def run_extraction(capture, entries, out_dir, *, plan_path=None, base_dir=".", preloaded=None, **options):
     """Extract ``entries`` (ChannelEntry) from an open capture into ``out_dir``.
 
     A channel's own plan path (from a channel list) is read relative to
-    ``base_dir``; otherwise ``plan_path`` serves.  Returns the ExtractResult, with
+    ``base_dir``; otherwise ``plan_path`` serves.  ``preloaded`` maps a plan path to
+    its ``(plan, identity)`` where the caller has read it already.  Returns the ExtractResult, with
     ``summary.json`` written and, unless ``plots`` is false, ``overview.png`` and
     one ``NAME.png`` per channel; ``result.warnings`` holds a line per channel whose
     listed bandwidth is wider than its plan's passband.  ``workers`` (a local cluster
@@ -117,7 +118,7 @@ def run_extraction(capture, entries, out_dir, *, plan_path=None, base_dir=".", *
         from .distributed import check_cluster_options
 
         check_cluster_options(opts.workers, opts.scheduler)
-    plans = {}
+    plans = dict(preloaded or {})
     requests = []
     warnings = []
     for e in entries:
