@@ -299,7 +299,25 @@ def test_bench_workers_figures(scene, tmp_path):
     assert got["speedup"] == pytest.approx(min(got["one_process_runs_s"]) / min(got["workers_runs_s"]), rel=1e-2, abs=1e-3)
     assert got["speedup_vs_one_thread"] == pytest.approx(min(got["one_thread_runs_s"]) / min(got["workers_runs_s"]),
                                                          rel=1e-2, abs=1e-3)
+    # the plain pool of processes runs the same chunks: its recordings are in ``identical`` too
+    assert len(got["plain_processes_runs_s"]) == 1
+    assert got["plain_speedup_vs_one_thread"] == pytest.approx(
+        min(got["one_thread_runs_s"]) / min(got["plain_processes_runs_s"]), rel=1e-2, abs=1e-3)
+    assert got["dask_over_plain"] == pytest.approx(min(got["workers_runs_s"]) / min(got["plain_processes_runs_s"]),
+                                                   rel=1e-2, abs=1e-3)
     assert got["chunks"] >= 1 and 0 <= got["overlap_cost"] < 1
+
+
+def test_plain_pool_refuses_chunks_that_follow_one_another(scene, tmp_path):
+    # bit-true CIC chunks take the previous chunk's registers; the bench's pool has no way to pass them
+    from channelizer.bench.scaling import _pool_runner
+
+    cap_path, plans, _ = scene
+    out = tmp_path / "out"
+    with pytest.raises(ValueError, match="bit-true"):
+        extract_channels(open_capture(cap_path), _requests(plans), str(out), bit_true=True, block_size=BLOCK,
+                         runner=_pool_runner(None, 2))
+    assert [f for f in os.listdir(out) if not f.startswith(".")] == []
 
 
 _BLAS_PROBE = """

@@ -173,6 +173,10 @@ def format_report(report):
         if "speedup_vs_one_thread" in w:
             lines.append(f"  against one process on one thread (no read-ahead, as each worker runs): "
                          f"{min(w['one_thread_runs_s']):.3f} s, speed-up {w['speedup_vs_one_thread']:.2f}x")
+        if "plain_speedup_vs_one_thread" in w:
+            lines.append(f"  the same chunks on {w['workers']} plain processes (multiprocessing, no dask): "
+                         f"{min(w['plain_processes_runs_s']):.3f} s, speed-up {w['plain_speedup_vs_one_thread']:.2f}x "
+                         f"over one thread (what the cores allow); dask takes {w['dask_over_plain']:.2f}x their time")
     lines += ["", "targets:"]
     labels = {
         "speedup_vs_reference": "one channel speed / reference speed",

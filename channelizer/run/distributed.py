@@ -26,8 +26,8 @@ from ..planning.stages import CicStage
 from .chunk_pass import ChunkJob, portable_capture, run_chunk
 from .chunks import balanced_chunk_blocks, chunk_layout
 
-__all__ = ["INSTALL_HINT", "CHUNK_BLOCKS", "check_cluster_options", "cluster_client", "cluster_layout", "distributed_runner",
-           "run_on_client", "worker_slots"]
+__all__ = ["INSTALL_HINT", "CHUNK_BLOCKS", "check_cluster_options", "chunk_jobs", "cluster_client", "cluster_layout",
+           "distributed_runner", "run_on_client", "worker_slots", "write_chunk_results", "WORKER_ENVIRON"]
 
 INSTALL_HINT = (
     "--workers and --scheduler need dask.distributed, an optional extra: "
@@ -42,20 +42,21 @@ CHUNK_BLOCKS = 64
 RETRIES = 2
 
 
-#: Settings of the local cluster, measured on a 16 Mi-sample chunk against the same chunk run
+#: Environment of every worker process, and the local cluster's settings, measured on a 16 Mi-sample chunk against the same chunk run
 #: in this process: dask's sampling profiler takes the worker's interpreter lock every 10 ms
 #: (a third slower); dask's MALLOC_TRIM_THRESHOLD_ of 64 KiB turns off glibc's adaptive mmap
 #: threshold, so every block-sized temporary is mapped and faulted in afresh (another third).
 #: With these a worker ran the chunk as fast as this process.
+WORKER_ENVIRON = {
+    "MALLOC_TRIM_THRESHOLD_": str(1 << 30),
+    "MALLOC_MMAP_THRESHOLD_": str(1 << 25),
+    "OMP_NUM_THREADS": "1",
+    "MKL_NUM_THREADS": "1",
+    "OPENBLAS_NUM_THREADS": "1",
+}
 _LOCAL_CONFIG = {
     "distributed.worker.profile.enabled": False,
-    "distributed.nanny.pre-spawn-environ": {
-        "MALLOC_TRIM_THRESHOLD_": 1 << 30,
-        "MALLOC_MMAP_THRESHOLD_": 1 << 25,
-        "OMP_NUM_THREADS": 1,
-        "MKL_NUM_THREADS": 1,
-        "OPENBLAS_NUM_THREADS": 1,
-    },
+    "distributed.nanny.pre-spawn-environ": WORKER_ENVIRON,
 }
 
 
@@ -129,39 +130,69 @@ def run_on_client(client, one, out_dir, files, *, output_format, nonfinite, prog
     cap = one.capture
     layout = cluster_layout([r.plan.stages for r in one.requests], cap.num_samples, block_size=one.block_size,
                             slots=worker_slots(client), chunk_samples=chunk_samples)
-    shipped = portable_capture(cap)
-    size = os.stat(shipped.data_path).st_size
-    # pruned bit-true CIC integrators carry the whole history: those chunks follow one another
-    sequential = one.bit_true and any(isinstance(st, CicStage) for r in one.requests for st in r.plan.stages)
+    jobs = chunk_jobs(one, layout, nonfinite=nonfinite)
     futures, prev = [], None
-    chunks = layout.chunks
-    for k, (a, b) in enumerate(chunks):
-        snap = max(0, chunks[k + 1][0] - layout.preroll) if sequential and k + 1 < len(chunks) else None
-        job = ChunkJob(shipped, tuple(one.requests), tuple(one.names), a, b, layout.preroll, bit_true=one.bit_true,
-                       nonfinite=nonfinite, block_size=one.block_size,
-                       overview=None if one.overview is None else one.overview.fresh(), data_size=size,
-                       snapshot_at=snap)
+    for job in jobs:
         fut = client.submit(task, job, prev, pure=False, retries=retries)
-        prev = client.submit(operator.itemgetter("cic_states"), fut, pure=False) if sequential else None
+        # a chunk whose CIC registers follow the previous chunk's waits for them
+        prev = client.submit(operator.itemgetter("cic_states"), fut, pure=False) if job.snapshot_at is not None else None
         futures.append(fut)
-    bar = ProgressBar(cap.num_samples, enabled=None if progress else False, label=f"extract ({len(chunks)} chunks)")
+
+    def results():
+        for k, fut in enumerate(futures):
+            res = _result(fut, k, layout.chunks)
+            futures[k] = None
+            yield res
+
     try:
-        with contextlib.ExitStack() as stack:
-            one.open_writers(stack, out_dir, files, output_format)
-            for k, fut in enumerate(futures):
-                res = _result(fut, k, chunks)
-                futures[k] = None
-                for i, y in enumerate(res["outputs"]):
-                    one.take(i, y)
-                if one.overview is not None and res["overview"] is not None:
-                    one.overview.merge(res["overview"])
-                cap.nonfinite_count += res["nonfinite"]
-                bar.update(chunks[k][1])
-            bar.close()
+        write_chunk_results(one, out_dir, files, results(), layout.chunks, output_format=output_format,
+                            progress=progress)
     finally:
         for fut in futures:
             if fut is not None:
                 fut.cancel()
+
+
+def chunk_jobs(one, layout, *, nonfinite):
+    """The :class:`~channelizer.run.chunk_pass.ChunkJob` of every chunk of ``layout``, in order.
+
+    Where a chain has a bit-true CIC, each job but the last carries the input index at
+    which the next chunk's registers are taken (``snapshot_at``): those chunks run one
+    after another (see :mod:`channelizer.run.chunk_pass`).
+    """
+    shipped = portable_capture(one.capture)
+    size = os.stat(shipped.data_path).st_size
+    # pruned bit-true CIC integrators carry the whole history: those chunks follow one another
+    sequential = one.bit_true and any(isinstance(st, CicStage) for r in one.requests for st in r.plan.stages)
+    chunks = layout.chunks
+    jobs = []
+    for k, (a, b) in enumerate(chunks):
+        snap = max(0, chunks[k + 1][0] - layout.preroll) if sequential and k + 1 < len(chunks) else None
+        jobs.append(ChunkJob(shipped, tuple(one.requests), tuple(one.names), a, b, layout.preroll,
+                             bit_true=one.bit_true, nonfinite=nonfinite, block_size=one.block_size,
+                             overview=None if one.overview is None else one.overview.fresh(), data_size=size,
+                             snapshot_at=snap))
+    return jobs
+
+
+def write_chunk_results(one, out_dir, files, results, chunks, *, output_format, progress):
+    """Write the results of :func:`~channelizer.run.chunk_pass.run_chunk`, in chunk order, through ``one``.
+
+    ``results`` yields one result per chunk of ``chunks``, in order; the recordings are
+    left uncommitted in ``files``.
+    """
+    cap = one.capture
+    bar = ProgressBar(cap.num_samples, enabled=None if progress else False, label=f"extract ({len(chunks)} chunks)")
+    with contextlib.ExitStack() as stack:
+        one.open_writers(stack, out_dir, files, output_format)
+        for (_, stop), res in zip(chunks, results):
+            for i, y in enumerate(res["outputs"]):
+                one.take(i, y)
+            if one.overview is not None and res["overview"] is not None:
+                one.overview.merge(res["overview"])
+            cap.nonfinite_count += res["nonfinite"]
+            bar.update(stop)
+        bar.close()
 
 
 def cluster_layout(chains, total, *, block_size, slots, chunk_samples=None):
