@@ -167,7 +167,7 @@ def format_report(report):
     w = report.workers
     if w:
         lines += ["", f"{w['workers']} dask workers against one process ({w['channels']} channels, {w['chunks']} chunks, "
-                  f"pre-roll {100 * w['overlap_cost']:.1f} % of a chunk): best {min(w['workers_runs_s']):.3f} s "
+                  f"pre-rolls add {100 * w['overlap_cost']:.1f} % to the input): best {min(w['workers_runs_s']):.3f} s "
                   f"against {min(w['one_process_runs_s']):.3f} s, speed-up {w['speedup']:.2f}x; cluster start "
                   f"{w['cluster_start_s']:.1f} s; outputs {'identical' if w['identical'] else 'DIFFERENT'}"]
         if "speedup_vs_one_thread" in w:
