@@ -440,6 +440,45 @@ def test_blocks_random_spans(ci16_capture, rng):
         assert_scaled(joined, comps[2 * start : 2 * stop], "<i2")
 
 
+@pytest.mark.parametrize("piece", [1, 100, 4096])
+def test_blocks_read_a_piece_at_a_time_hold_the_stored_samples(ci16_capture, monkeypatch, piece):
+    # a block is read and converted in pieces (CONVERT_PIECE); the joined blocks are still the
+    # file's samples scaled by 2**-15 (common practice), whatever the piece and block lengths
+    from channelizer.io import captures
+
+    monkeypatch.setattr(captures, "CONVERT_PIECE", piece)
+    cap, comps = ci16_capture
+    for size in (1, 99, 4096, 5000, 10007):
+        blocks = list(cap.blocks(size, start=3, stop=cap.num_samples))
+        assert all(len(b) == size for b in blocks[:-1])
+        assert_scaled(np.concatenate(blocks), comps[6:], "<i2")
+
+
+def test_nonfinite_samples_found_across_pieces(tmp_path, monkeypatch):
+    from channelizer.io import captures
+
+    monkeypatch.setattr(captures, "CONVERT_PIECE", 64)
+    x = np.ones(1000, np.complex64)
+    x[[63, 64, 700]] = [np.nan, complex(np.inf, 0), complex(0, -np.inf)]
+    x.tofile(tmp_path / "nan.cf32")
+    cap = open_capture(tmp_path / "nan.cf32", input_format="cf32_le", rate=1e6)
+    with pytest.raises(ChannelizerError, match=r"nan\.cf32: sample 63 "):
+        list(cap.blocks(500))
+    joined = np.concatenate(list(cap.blocks(500, nonfinite="zero")))
+    assert cap.nonfinite_count == 3 and np.count_nonzero(joined == 0) == 3 and joined[700] == 0
+
+
+def test_to_complex64_into_an_array(rng):
+    comps = random_components(rng, "<i2", 50)
+    out = np.full(50, 7 + 7j, np.complex64)
+    assert to_complex64(comps, "ci16_le", out=out) is out
+    assert_scaled(out, comps, "<i2")
+    with pytest.raises(ValueError, match="out: expected a contiguous complex64 array of 50 samples"):
+        to_complex64(comps, "ci16_le", out=np.zeros(49, np.complex64))
+    with pytest.raises(ValueError, match="complex128"):
+        to_complex64(comps, "ci16_le", out=np.zeros(50, np.complex128))
+
+
 def test_raw_blocks_are_stored_integers(ci16_capture):
     cap, comps = ci16_capture
     blocks = list(cap.raw_blocks(1000, start=5, stop=2500))

@@ -1,8 +1,9 @@
 """Reading IQ captures: SigMF recordings, two-channel WAV files and raw files.
 
 :func:`open_capture` looks at the file name, reads and checks the metadata, and
-returns a :class:`Capture`, which reads samples through a read-only memory map,
-block by block, as complex64 (float path) or as stored integers (bit-true path).
+returns a :class:`Capture`, which reads samples with bounds-checked reads (no
+memory map, see :mod:`channelizer.io.sample_reader`), block by block, as complex64
+(float path) or as stored integers (bit-true path).
 
 - ``X.sigmf-meta``, ``X.sigmf-data`` or ``X.sigmf``: a SigMF recording (the pair
   ``X.sigmf-meta`` + ``X.sigmf-data``; archives are not read, unpack them first).
@@ -37,6 +38,13 @@ NonfiniteMode = Literal["error", "zero"]
 _META_EXT = ".sigmf-meta"
 _DATA_EXT = ".sigmf-data"
 _ARCHIVE_EXT = ".sigmf"
+
+#: Samples read and converted at a time within a block (512 KiB of ci16, 1 MiB as complex64).
+#: Reading a whole block of 2**20 ci16 samples first and converting it after runs the stored
+#: components out of the core's cache and back; in pieces they stay in it.  Measured on 4 s
+#: of 61.44 Msps, two channels, 2-core x86: the pass on one thread 0-3 % quicker, two
+#: processes side by side (the dask split) about 10 % quicker, pieces of 2**16 or 2**17 alike.
+CONVERT_PIECE = 1 << 17
 
 
 def _check_mode(nonfinite):
@@ -201,7 +209,11 @@ class Capture:
         check = not self.datatype.is_integer
         for first in range(start, stop, size):
             last = min(first + size, stop)
-            block = to_complex64(comps[first:last], self.datatype)
+            block = np.empty(last - first, dtype=np.complex64)
+            # read and convert a piece at a time: the stored piece stays in the core's cache
+            for a in range(first, last, CONVERT_PIECE):
+                b = min(a + CONVERT_PIECE, last)
+                to_complex64(comps[a:b], self.datatype, out=block[a - first : b - first])
             if check:
                 self.check_finite(block, first, nonfinite=nonfinite)
             yield block

@@ -136,7 +136,7 @@ def _interleaved(raw):
     raise ValueError(f"expected interleaved components of shape (2n,) or (n, 2), got shape {raw.shape}")
 
 
-def to_complex64(raw, datatype):
+def to_complex64(raw, datatype, *, out=None):
     """Convert stored components to complex64 samples with the tool's scaling.
 
     Parameters
@@ -146,11 +146,13 @@ def to_complex64(raw, datatype):
         the datatype's kind and width (either byte order).
     datatype : Datatype or str
         A complex datatype.
+    out : numpy.ndarray, optional
+        A contiguous complex64 array of ``n`` samples to write into.
 
     Returns
     -------
     numpy.ndarray
-        ``n`` complex64 samples (a new array).
+        ``n`` complex64 samples (``out`` when given, else a new array).
 
     Notes
     -----
@@ -167,7 +169,11 @@ def to_complex64(raw, datatype):
     flat = _interleaved(raw)
     if flat.dtype.kind != dt.kind or flat.dtype.itemsize * 8 != dt.bits:
         raise TypeError(f"components of dtype {flat.dtype} do not match datatype {dt.name!r}")
-    out = np.empty(flat.size // 2, dtype=np.complex64)
+    if out is None:
+        out = np.empty(flat.size // 2, dtype=np.complex64)
+    elif out.dtype != np.complex64 or out.shape != (flat.size // 2,) or not out.flags.c_contiguous:
+        raise ValueError(f"out: expected a contiguous complex64 array of {flat.size // 2} samples, "
+                         f"got {out.dtype} of shape {out.shape}")
     parts = out.view(np.float32)
     half = 2.0 ** (dt.bits - 1)
     if dt.kind == "f":
