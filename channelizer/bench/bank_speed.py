@@ -75,10 +75,11 @@ class BankBenchReport:
         return asdict(self)
 
 
-def _best(make, x, cpu=None):
+def _best(make, x, cpu=None, made=None):
     """Best wall time of at least ``REPEATS`` runs, repeated until ``MIN_TIMED_S`` is spent.
 
-    ``cpu`` (a list) receives the least process CPU time.  A run of a millisecond or two
+    ``cpu`` (a list) receives the least process CPU time, ``made`` (a list) the last
+    runner timed (to read how it ran).  A run of a millisecond or two
     (one channel of 2.4 Msps) is at the mercy of the scheduler; the best of many such runs
     is steadier, and every figure gets the same rule.
     """
@@ -95,6 +96,8 @@ def _best(make, x, cpu=None):
         least = min(least, time.process_time() - c0)
     if cpu is not None:
         cpu.append(least)
+    if made is not None:
+        made.append(runner)
     return best
 
 
@@ -163,9 +166,9 @@ def run_bank_benchmark(*, spacing, rate=2.4e6, bandwidth=None, seconds=0.5):
             channels=list(zip(plan.channel_bins, residuals))[:count], fine_stages=plan.stages, fs=rate,
         )
 
-    cpu = []
-    bank = _best(make_bank(plan.count), x, cpu)
-    method = make_bank(plan.count)().bank.method
+    cpu, made = [], []
+    bank = _best(make_bank(plan.count), x, cpu, made)
+    method = made[0].bank.method
     compiled = filterbank.compiled_kernel() if method == "compiled" else None
     half = max(1, plan.count // 2)
     memory = tuple(_memory_beyond_outputs(make_bank(c), x) for c in (half, 2 * half))
