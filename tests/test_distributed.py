@@ -242,6 +242,22 @@ def test_two_worker_cluster_gives_the_one_process_recordings(scene, tmp_path, bi
             [e["signal_center_hz"] for e in c2["alias_audit"]])
 
 
+def test_local_workers_run_with_the_quiet_settings(client):
+    # the settings reach the worker processes (dask passes the client's configuration on
+    # through each nanny), and so do the environment variables read as each process starts
+    from channelizer.run.distributed import WORKER_ENVIRON, _LOCAL_CONFIG
+
+    def seen():
+        import dask
+
+        return ({k: dask.config.get(k) for k in _LOCAL_CONFIG if k != "distributed.nanny.pre-spawn-environ"},
+                {k: os.environ.get(k) for k in WORKER_ENVIRON})
+
+    for config, environ in client.run(seen).values():
+        assert config == {k: v for k, v in _LOCAL_CONFIG.items() if k != "distributed.nanny.pre-spawn-environ"}
+        assert environ == WORKER_ENVIRON
+
+
 def test_a_worker_that_dies_has_its_chunk_run_again(scene, tmp_path, client):
     cap_path, plans, _ = scene
     reqs = _requests(plans)

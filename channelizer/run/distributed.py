@@ -42,11 +42,12 @@ CHUNK_BLOCKS = 64
 RETRIES = 2
 
 
-#: Environment of every worker process, and the local cluster's settings, measured on a 16 Mi-sample chunk against the same chunk run
-#: in this process: dask's sampling profiler takes the worker's interpreter lock every 10 ms
-#: (a third slower); dask's MALLOC_TRIM_THRESHOLD_ of 64 KiB turns off glibc's adaptive mmap
-#: threshold, so every block-sized temporary is mapped and faulted in afresh (another third).
-#: With these a worker ran the chunk as fast as this process.
+#: Environment of every worker process, and the local cluster's settings, measured on a
+#: 16 Mi-sample chunk against the same chunk run in this process: dask's sampling profiler
+#: takes the worker's interpreter lock every 10 ms (a third slower); dask's
+#: MALLOC_TRIM_THRESHOLD_ of 64 KiB turns off glibc's adaptive mmap threshold, so every
+#: block-sized temporary is mapped and faulted in afresh (another third).  With these a worker
+#: ran the chunk as fast as this process.
 WORKER_ENVIRON = {
     "MALLOC_TRIM_THRESHOLD_": str(1 << 30),
     "MALLOC_MMAP_THRESHOLD_": str(1 << 25),
@@ -54,9 +55,17 @@ WORKER_ENVIRON = {
     "MKL_NUM_THREADS": "1",
     "OPENBLAS_NUM_THREADS": "1",
 }
+#: The local cluster's periodic work is also slowed: its event-loop tick (20 ms), system
+#: monitor (0.5 s) and memory monitor (0.1 s) kept an idle 2-worker cluster at 0.07-0.09 s
+#: of CPU a second on a 2-core machine, time taken from the chunks; with these, 0.014 s.
+#: They feed dask's dashboard and memory limits, which a run of a few chunks does not need.
 _LOCAL_CONFIG = {
     "distributed.worker.profile.enabled": False,
     "distributed.nanny.pre-spawn-environ": WORKER_ENVIRON,
+    "distributed.admin.tick.interval": "500ms",
+    "distributed.admin.tick.limit": "10s",
+    "distributed.admin.system-monitor.interval": "5s",
+    "distributed.worker.memory.monitor-interval": "1s",
 }
 
 
