@@ -14,6 +14,7 @@ import math
 import os
 import subprocess
 import sys
+import time
 
 import numpy as np
 import pytest
@@ -240,6 +241,42 @@ def test_two_worker_cluster_gives_the_one_process_recordings(scene, tmp_path, bi
         assert c1["samples"] == c2["samples"] and c1["mean_power_dbfs"] == pytest.approx(c2["mean_power_dbfs"], abs=1e-3)
         assert [e["signal_center_hz"] for e in c1["alias_audit"]] == pytest.approx(
             [e["signal_center_hz"] for e in c2["alias_audit"]])
+
+
+def test_a_cluster_started_by_hand_gives_the_one_process_recordings(scene, tmp_path):
+    # the README's two commands, `dask scheduler` and `dask worker`, as separate processes;
+    # extract --scheduler then runs on them (dask's own command line, python -m dask)
+    cap_path, plans, _ = scene
+    info = tmp_path / "scheduler.json"
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [os.path.dirname(os.path.dirname(
+        os.path.abspath(__file__))), os.environ.get("PYTHONPATH")])))
+    quiet = dict(stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, cwd=tmp_path)
+    started = [subprocess.Popen([sys.executable, "-m", "dask", "scheduler", "--host", "127.0.0.1", "--port", "0",
+                                 "--no-dashboard", "--scheduler-file", str(info)], **quiet)]
+    try:
+        deadline = time.monotonic() + 60
+        while not info.exists() and time.monotonic() < deadline:
+            time.sleep(0.1)
+        address = json.loads(info.read_text())["address"]
+        started.append(subprocess.Popen([sys.executable, "-m", "dask", "worker", address, "--nthreads", "1",
+                                         "--no-dashboard"], **quiet))
+        from distributed import Client
+
+        with Client(address, timeout="30s") as c:
+            c.wait_for_workers(1, timeout=60)
+            assert _cli(cap_path, plans, tmp_path / "one") == 0
+            assert _cli(cap_path, plans, tmp_path / "two", "--scheduler", address) == 0
+            # the chunks ran there: the scheduler has seen run_chunk tasks
+            ran = c.run_on_scheduler(lambda dask_scheduler: sorted(dask_scheduler.task_prefixes))
+        assert "run_chunk" in ran
+    finally:
+        for proc in reversed(started):
+            proc.terminate()
+            proc.wait(timeout=30)
+    a = _read_all(tmp_path / "one", ["strong", "weak"])
+    b = _read_all(tmp_path / "two", ["strong", "weak"])
+    for name in a:
+        assert a[name].size == b[name].size and np.array_equal(a[name], b[name]), name
 
 
 def test_local_workers_run_with_the_quiet_settings(client):
