@@ -1,13 +1,14 @@
 """Speed-up of the distributed runner: the same extraction on one process and on N workers.
 
-Both runs extract the same channels from the benchmark's capture with the
+Every run extracts the same channels from the benchmark's capture with the
 overview spectrum on (as the ``extract`` command does); the distributed one runs
 on a local dask.distributed cluster of ``workers`` processes started once, whose
-start-up is reported apart (a cluster serves many runs).  The outputs of the two
+start-up is reported apart (a cluster serves many runs).  The outputs of the
 runs are compared sample for sample.  What limits the speed-up: the disk's read
 rate (every worker reads its own range), the chunks' pre-roll (one block per
 chunk, ``overlap_cost``), the client writing every output, and here the cores:
-two workers on a 2-core machine share them with the client.
+two workers on a 2-core machine share them, and their memory bandwidth, with
+the client.
 
 One process reads ahead on a second thread (:mod:`channelizer.io.read_ahead`),
 so on a 2-core machine it already keeps part of the second core busy.  The
