@@ -14,7 +14,8 @@ the published standard, survives the extraction:
   is the strongest line near 15.7 kHz.
 
 A whole raster of channels through the filter bank equals the same kind of model, channel
-by channel (tests/chain_reference.py, from the bank's description).
+by channel (tests/chain_reference.py, from the bank's description).  Cut into chunks on two
+dask workers, a recording's channel is the one-process channel bit for bit.
 """
 
 from pathlib import Path
@@ -192,3 +193,32 @@ def test_bank_raster_equals_the_model(tmp_path, name, bandwidth, spacing, output
         # float32 arithmetic on the whole band: errors scale with the input, not the channel
         # (a quiet channel shares the bank's rounding with the loud ones; common practice)
         assert np.max(np.abs(y - ref)) < 3e-6 * scale, ch.name  # seen: 2e-7 to 3e-7
+
+
+@pytest.mark.parametrize("name,bandwidth,freq,bit_true", [
+    ("lf-timecode-77k5", 400.0, 0.0, False),
+    ("lf-timecode-77k5", 400.0, 0.0, True),  # ci16: the integer chain, CIC registers handed on
+    ("analog-video-10m", 1.6e6, -1.25e6, False),
+])
+def test_two_dask_workers_give_the_one_process_recording(tmp_path, name, bandwidth, freq, bit_true):
+    # the chunked-filtering rule of methods.md: chunks on the chain's period, each after a
+    # pre-roll that fills every stage's memory, give the single pass's samples; the
+    # recording is cut into chunks of whole blocks, a block being an eighth of it or so (two
+    # chunks of four blocks each on two workers: one chunk boundary, one pre-roll)
+    pytest.importorskip("distributed")
+    from channelizer.run.chunks import aligned_block_size
+
+    cap = open_capture(str(REAL / f"{name}.sigmf-meta"))
+    plan = plan_chain(ChainSpec(input_rate=cap.sample_rate, bandwidth=bandwidth)).plan
+    path = tmp_path / "plan.yaml"
+    path.write_text(plan.to_yaml())
+    block = aligned_block_size([plan.stages], cap.num_samples // 8)
+    assert cap.num_samples >= 4 * block
+    out = {}
+    for where, extra in (("one", {}), ("two", {"workers": 2})):
+        run_extraction(open_capture(str(REAL / f"{name}.sigmf-meta")), [ChannelEntry("ch", freq, True)],
+                       str(tmp_path / where), plan_path=str(path), plots=False, block_size=block, bit_true=bit_true,
+                       **extra)
+        out[where] = np.fromfile(tmp_path / where / "ch.sigmf-data", dtype="<c8")
+    assert out["one"].size == out["two"].size > 0
+    np.testing.assert_array_equal(out["two"], out["one"])  # bit for bit, float and integer chains
