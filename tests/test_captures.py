@@ -455,6 +455,8 @@ def test_blocks_read_a_piece_at_a_time_hold_the_stored_samples(ci16_capture, mon
 
 
 def test_nonfinite_samples_found_across_pieces(tmp_path, monkeypatch):
+    # NaN and both infinities are the non-finite values of IEEE 754 (from memory); they sit at
+    # the end of one piece, the start of the next, and inside a later block
     from channelizer.io import captures
 
     monkeypatch.setattr(captures, "CONVERT_PIECE", 64)
@@ -469,6 +471,7 @@ def test_nonfinite_samples_found_across_pieces(tmp_path, monkeypatch):
 
 
 def test_to_complex64_into_an_array(rng):
+    # the same samples as a new array gives: signed 16-bit / 2**15 (common practice, reference_complex)
     comps = random_components(rng, "<i2", 50)
     out = np.full(50, 7 + 7j, np.complex64)
     assert to_complex64(comps, "ci16_le", out=out) is out

@@ -284,14 +284,15 @@ def test_local_workers_run_with_the_quiet_settings(client):
     # through each nanny), and so do the environment variables read as each process starts
     from channelizer.run.distributed import WORKER_ENVIRON, _LOCAL_CONFIG
 
+    settings = {k: v for k, v in _LOCAL_CONFIG.items() if k != "distributed.nanny.pre-spawn-environ"}
+
     def seen():
         import dask
 
-        return ({k: dask.config.get(k) for k in _LOCAL_CONFIG if k != "distributed.nanny.pre-spawn-environ"},
-                {k: os.environ.get(k) for k in WORKER_ENVIRON})
+        return {k: dask.config.get(k) for k in settings}, {k: os.environ.get(k) for k in WORKER_ENVIRON}
 
     for config, environ in client.run(seen).values():
-        assert config == {k: v for k, v in _LOCAL_CONFIG.items() if k != "distributed.nanny.pre-spawn-environ"}
+        assert config == settings
         assert environ == WORKER_ENVIRON
 
 
